@@ -1,0 +1,1 @@
+"""lapbench harness: problems and domains, metrics, isolated runs, records, report, check, CLI."""

@@ -1,0 +1,455 @@
+"""The problem catalogue: each entry is data plus its exact solution, mathematics in the docstring.
+
+Conventions: ``-Laplace(u) = f`` in the domain, ``u = g`` on the boundary (``kind`` is
+``laplace`` when f = 0, ``poisson`` otherwise); eigen problems ``-Laplace(u) = lambda u``,
+``u = 0`` on the boundary. Points are arrays of shape ``(m, 2)``.
+
+Solvers receive `Problem.public()`: a view without the exact solution or reference values,
+whose boundary data refuses points that are not on the boundary.
+"""
+from __future__ import annotations
+
+import dataclasses
+import math
+from typing import Callable, Literal
+
+import numpy as np
+
+from bench.config import ConfigError, build_params, positive
+from bench.domains import Domain, Rectangle, make_domain
+
+__all__ = ["Problem", "PROBLEMS", "make_problem", "BoundaryDataError", "register_problem"]
+
+
+class BoundaryDataError(ValueError):
+    """A solver evaluated boundary data away from the boundary (it would see the exact solution)."""
+
+
+@dataclasses.dataclass
+class Problem:
+    """One test problem.
+
+    Attributes
+    ----------
+    name : str
+        Catalogue key (= conf/problem/<name>.yaml = the ``problem`` column of records).
+    kind : {'laplace', 'poisson', 'eigen'}
+    domain : Domain
+    f, g : callable or None
+        Source term and Dirichlet data (vectorised over points).
+    exact : callable or None
+        Exact solution (harness only).
+    params : dict
+        The difficulty knobs as configured (frequency, width, ...).
+    source : str
+        Where the exact solution or reference values come from.
+    n_eigs : int
+        Eigen problems: how many eigenvalues are wanted.
+    eigenvalues : ndarray or None
+        Eigen problems: reference eigenvalues (harness only).
+    eval_level : int
+        Panels per side of the evaluation quadrature (raise for sharp features).
+    eval_exclude : callable or None
+        Mask of evaluation points to leave out (e.g. a strip next to a discontinuity), stated
+        in `source`.
+    """
+
+    name: str
+    kind: Literal["laplace", "poisson", "eigen"]
+    domain: Domain
+    f: Callable | None = None
+    g: Callable | None = None
+    exact: Callable | None = None
+    params: dict = dataclasses.field(default_factory=dict)
+    source: str = ""
+    n_eigs: int = 0
+    eigenvalues: np.ndarray | None = None
+    modes: Callable | None = None
+    eval_level: int = 48
+    eval_exclude: Callable | None = None
+    is_public: bool = False
+
+    def public(self) -> "Problem":
+        """The view a solver gets: no exact solution, boundary data guarded."""
+        if self.is_public:
+            return self
+        g = _guarded(self.g, self.domain) if self.g is not None else None
+        return dataclasses.replace(self, exact=None, eigenvalues=None, modes=None, g=g,
+                                   is_public=True)
+
+    def f_or_zero(self, points: np.ndarray) -> np.ndarray:
+        if self.f is None:
+            return np.zeros(len(points))
+        return np.asarray(self.f(points), dtype=float)
+
+    def eval_set(self, seed: int = 0):
+        es = self.domain.eval_set(seed=seed, level=self.eval_level)
+        if self.eval_exclude is None:
+            return es
+        keep = ~self.eval_exclude(es.points)
+        keep_x = ~self.eval_exclude(es.extra)
+        return dataclasses.replace(es, points=es.points[keep], weights=es.weights[keep],
+                                   extra=es.extra[keep_x])
+
+    def describe(self) -> dict:
+        return {"name": self.name, "kind": self.kind, "domain": self.domain.to_dict(),
+                "params": self.params, "source": self.source}
+
+
+def _guarded(g: Callable, domain: Domain) -> Callable:
+    def boundary_data(points):
+        p = np.asarray(points, dtype=float)
+        off = ~domain.on_boundary(p, tol=1e-8 * domain.scale)
+        if off.any():
+            raise BoundaryDataError(
+                f"boundary data evaluated at {int(off.sum())} point(s) off the boundary, "
+                f"e.g. {p[off][0].tolist()}")
+        return np.asarray(g(p), dtype=float)
+
+    return boundary_data
+
+
+# ------------------------------------------------------------------------------------------
+# The catalogue. Each builder takes its validated Params and returns a Problem.
+# ------------------------------------------------------------------------------------------
+
+@dataclasses.dataclass
+class RectDomainConfig:
+    kind: str = "rectangle"
+    x0: float = 0.0
+    x1: float = 1.0
+    y0: float = 0.0
+    y1: float = 1.0
+
+
+def _rect(cfg: dict | None) -> Rectangle:
+    d = make_domain(cfg or {"kind": "rectangle"})
+    if not isinstance(d, Rectangle):
+        raise ConfigError(f"`problem.domain.kind` must be 'rectangle' for this problem; got {d.kind!r}")
+    return d
+
+
+@dataclasses.dataclass
+class SineParams:
+    k: int = 1
+    l: int = 1
+    domain: dict = dataclasses.field(default_factory=lambda: {"kind": "rectangle"})
+
+    def __post_init__(self):
+        positive("k", self.k, integer=True, maximum=4096)
+        positive("l", self.l, integer=True, maximum=4096)
+
+
+def sine(p: SineParams) -> Problem:
+    """Poisson sine mode.
+
+    ``u = sin(k pi s) sin(l pi t)`` with s, t the coordinates scaled to [0, 1] on the rectangle
+    [x0, x1] x [y0, y1]; ``f = pi^2 (k^2/a^2 + l^2/b^2) u``, u = 0 on the boundary.
+    Source: closed form (separation of variables) [common practice].
+    """
+    d = _rect(p.domain)
+    a, b = d.lengths
+    lam = math.pi ** 2 * (p.k ** 2 / a ** 2 + p.l ** 2 / b ** 2)
+
+    def u(pts):
+        return (np.sin(p.k * np.pi * (pts[:, 0] - d.x0) / a)
+                * np.sin(p.l * np.pi * (pts[:, 1] - d.y0) / b))
+
+    return Problem("sine", "poisson", d, f=lambda pts: lam * u(pts), g=lambda pts: np.zeros(len(pts)),
+                   exact=u, params={"k": p.k, "l": p.l},
+                   source="closed form: u = sin(k pi x) sin(l pi y), f = pi^2 (k^2/a^2 + l^2/b^2) u",
+                   eval_level=max(48, 8 * max(p.k, p.l)))
+
+
+@dataclasses.dataclass
+class HarmonicParams:
+    omega: float = 1.0
+    domain: dict = dataclasses.field(default_factory=lambda: {"kind": "rectangle"})
+
+    def __post_init__(self):
+        positive("omega", self.omega, maximum=200.0)
+
+
+def harmonic(p: HarmonicParams) -> Problem:
+    """Laplace problem with nonzero Dirichlet data on every edge.
+
+    ``u = exp(omega x) cos(omega y)`` (the real part of exp(omega z)), harmonic everywhere;
+    ``g = u`` on the boundary. Source: closed form [common practice].
+    """
+    d = _rect(p.domain)
+    w = p.omega
+
+    def u(pts):
+        return np.exp(w * pts[:, 0]) * np.cos(w * pts[:, 1])
+
+    return Problem("harmonic", "laplace", d, f=None, g=u, exact=u, params={"omega": w},
+                   source="closed form: u = exp(omega x) cos(omega y) = Re exp(omega z)")
+
+
+@dataclasses.dataclass
+class PlateParams:
+    temperature: float = 1.0
+    profile: str = "uniform"
+    exclude: float = 0.05
+    tol: float = 1e-14
+    domain: dict = dataclasses.field(default_factory=lambda: {"kind": "rectangle"})
+
+    def __post_init__(self):
+        if self.profile not in ("uniform", "sine"):
+            raise ConfigError(f"`profile` must be one of 'uniform', 'sine'; got {self.profile!r}")
+        if not (0 <= self.exclude < 0.5):
+            raise ConfigError(f"`exclude` must lie in [0, 0.5), got {self.exclude!r}")
+        positive("tol", self.tol)
+
+
+def plate_terms(a: float, b: float, delta: float, tol: float, cap: int = 100_001) -> int:
+    """Largest odd N so that the series tail after n <= N is below `tol` (times U0) at distance
+    `delta` from the hot edge.
+
+    Tail bound after terms n <= N (N odd): (4 / (pi (N+2))) exp(-(N+2) pi delta/a) /
+    (1 - exp(-2 pi delta/a)) [computed; see the problem docstring].
+    """
+    if delta <= 0:
+        return cap
+    q = 1.0 - math.exp(-2 * math.pi * delta / a)
+    N = 1
+    while N < cap:
+        tail = 4.0 / (math.pi * (N + 2)) * math.exp(-(N + 2) * math.pi * delta / a) / q
+        if tail < tol:
+            return N
+        N += 2
+    return cap
+
+
+def plate_series(pts: np.ndarray, a: float, b: float, U0: float, N: int, x0=0.0, y0=0.0) -> np.ndarray:
+    """Evaluate (4 U0/pi) sum_{n odd <= N} sin(n pi x/a) sinh(n pi y/a) / (n sinh(n pi b/a)).
+
+    The sinh ratio is evaluated as exp(n pi (y-b)/a) (1 - exp(-2 n pi y/a)) / (1 - exp(-2 n pi b/a)),
+    which neither overflows nor cancels.
+    """
+    x = (pts[:, 0] - x0)[:, None]
+    y = (pts[:, 1] - y0)[:, None]
+    out = np.zeros(len(pts))
+    chunk = 256
+    for start in range(1, N + 1, 2 * chunk):
+        n = np.arange(start, min(N, start + 2 * chunk - 1) + 1, 2, dtype=float)[None, :]
+        k = n * np.pi / a
+        ratio = np.exp(k * (y - b)) * (-np.expm1(-2 * k * y)) / (-np.expm1(-2 * k * b))
+        out += (np.sin(k * x) * ratio / n).sum(axis=1)
+    return 4.0 * U0 / np.pi * out
+
+
+def plate(p: PlateParams) -> Problem:
+    """Steady heated plate: Laplace on [0, a] x [0, b], u = 0 on three edges, hot top edge.
+
+    ``profile='uniform'``: u(x, b) = U0, the classical series
+    u = (4 U0/pi) sum_{n odd} sin(n pi x/a) sinh(n pi y/a) / (n sinh(n pi b/a))
+    (separation of variables; Kreyszig, Advanced Engineering Mathematics). The series is truncated
+    where its tail bound falls below ``tol * U0`` at the evaluation points; because the data jump
+    at the two hot corners, errors are measured outside the strip ``y > b - exclude * b``.
+    The corner nodes carry U0/2.
+    ``profile='sine'``: u(x, b) = U0 sin(pi x/a), exact single term
+    u = U0 sin(pi x/a) sinh(pi y/a)/sinh(pi b/a); no exclusion.
+    """
+    d = _rect(p.domain)
+    a, b = d.lengths
+    U0 = p.temperature
+    x0, y0 = d.x0, d.y0
+    on_top = lambda pts: np.isclose(pts[:, 1], d.y1, rtol=0, atol=1e-12 * max(a, b))  # noqa: E731
+
+    if p.profile == "sine":
+        def u(pts):
+            return plate_series_sine(pts, a, b, U0, x0, y0)
+
+        return Problem("plate", "laplace", d, g=u, exact=u, params={"profile": "sine", "temperature": U0},
+                       source="closed form: u = U0 sin(pi x/a) sinh(pi y/a) / sinh(pi b/a)")
+
+    delta = p.exclude * b
+    N = plate_terms(a, b, delta, p.tol) if delta > 0 else 100_001
+
+    def g(pts):
+        val = np.where(on_top(pts), U0, 0.0)
+        corner = on_top(pts) & (np.isclose(pts[:, 0], d.x0, atol=1e-12 * a) |
+                                np.isclose(pts[:, 0], d.x1, atol=1e-12 * a))
+        return np.where(corner, 0.5 * U0, val)
+
+    def u(pts):
+        return np.where(on_top(pts), g(pts), plate_series(pts, a, b, U0, N, x0, y0))
+
+    exclude = (lambda pts: pts[:, 1] > d.y1 - delta) if delta > 0 else None
+    return Problem("plate", "laplace", d, g=g, exact=u,
+                   params={"profile": "uniform", "temperature": U0, "exclude": p.exclude, "terms": N},
+                   source=("Fourier series (separation of variables; Kreyszig, Advanced Engineering "
+                           f"Mathematics), {N} odd terms, tail < {p.tol:g} U0 outside the strip "
+                           f"y > b - {p.exclude:g} b, which is excluded from error measurement"),
+                   eval_exclude=exclude)
+
+
+def plate_series_sine(pts, a, b, U0, x0=0.0, y0=0.0):
+    k = np.pi / a
+    x, y = pts[:, 0] - x0, pts[:, 1] - y0
+    return U0 * np.sin(k * x) * np.exp(k * (y - b)) * (-np.expm1(-2 * k * y)) / (-np.expm1(-2 * k * b))
+
+
+@dataclasses.dataclass
+class PeakParams:
+    alpha: float = 1000.0
+    xc: float = 0.5
+    yc: float = 0.5
+
+    def __post_init__(self):
+        positive("alpha", self.alpha, maximum=1e8)
+
+
+def peak(p: PeakParams) -> Problem:
+    """Gaussian peak (Poisson) on the unit square.
+
+    u = exp(-alpha rho^2), rho^2 = (x-xc)^2 + (y-yc)^2, f = 4 alpha (1 - alpha rho^2) u, g = u.
+    Source: W. F. Mitchell, "A collection of 2D elliptic problems for testing adaptive grid
+    refinement algorithms", Appl. Math. Comput. 220 (2013) 350-364 (sets: alpha = 1000 at
+    (0.5, 0.5); alpha = 100000 at (0.51, 0.117)).
+    """
+    d = Rectangle()
+    al, xc, yc = p.alpha, p.xc, p.yc
+
+    def rho2(pts):
+        return (pts[:, 0] - xc) ** 2 + (pts[:, 1] - yc) ** 2
+
+    def u(pts):
+        return np.exp(-al * rho2(pts))
+
+    def f(pts):
+        r2 = rho2(pts)
+        return 4 * al * (1 - al * r2) * np.exp(-al * r2)
+
+    width = 1 / math.sqrt(al)
+    level = int(min(1024, max(48, 4 / width)))
+    return Problem("peak", "poisson", d, f=f, g=u, exact=u, params={"alpha": al, "xc": xc, "yc": yc},
+                   source="Mitchell, Appl. Math. Comput. 220 (2013) 350-364: Gaussian peak",
+                   eval_level=level)
+
+
+@dataclasses.dataclass
+class WavefrontParams:
+    alpha: float = 20.0
+    xc: float = -0.05
+    yc: float = -0.05
+    r0: float = 0.7
+
+    def __post_init__(self):
+        positive("alpha", self.alpha, maximum=1e6)
+        positive("r0", self.r0)
+
+
+def wavefront(p: WavefrontParams) -> Problem:
+    """Wave front (Poisson) on the unit square: u = atan(alpha (r - r0)), r = |(x, y) - (xc, yc)|.
+
+    f = -Laplace(u) derived by sympy; g = u. Source: Mitchell, Appl. Math. Comput. 220 (2013)
+    350-364 (sets (alpha, xc, yc, r0): (20, -0.05, -0.05, 0.7), (1000, -0.05, -0.05, 0.7),
+    (1000, 1.5, 0.25, 0.92), (50, 0.5, 0.5, 0.25)).
+    """
+    from bench.expr import Manufactured
+
+    m = Manufactured(f"atan({p.alpha!r}*(sqrt((x-({p.xc!r}))**2 + (y-({p.yc!r}))**2) - {p.r0!r}))")
+    level = int(min(1024, max(48, 2 * p.alpha)))
+    return Problem("wavefront", "poisson", Rectangle(), f=m.f, g=m.u, exact=m.u,
+                   params={"alpha": p.alpha, "xc": p.xc, "yc": p.yc, "r0": p.r0},
+                   source="Mitchell, Appl. Math. Comput. 220 (2013) 350-364: wave front; f by sympy",
+                   eval_level=level)
+
+
+@dataclasses.dataclass
+class LayerParams:
+    eps: float = 0.05
+
+    def __post_init__(self):
+        positive("eps", self.eps)
+        if self.eps < 1e-4:
+            raise ConfigError(f"`eps` must be at least 1e-4 (layers thinner than the float64 "
+                              f"evaluation set resolves), got {self.eps!r}")
+
+
+def layer(p: LayerParams) -> Problem:
+    """Boundary layers (Poisson) on the unit square, layer width `eps` at x = 1 and y = 1.
+
+    u = (1 - exp(-(1-x)/eps)) (1 - exp(-(1-y)/eps)) cos(pi (x+y)); f = -Laplace(u) by sympy; g = u.
+    A manufactured Poisson counterpart of the boundary-layer problem in Mitchell's collection
+    (Appl. Math. Comput. 220 (2013) 350-364), where that problem is convection-diffusion.
+    """
+    from bench.expr import Manufactured
+
+    e = repr(p.eps)
+    m = Manufactured(f"(1 - exp(-(1-x)/{e}))*(1 - exp(-(1-y)/{e}))*cos(pi*(x+y))")
+    level = int(min(1024, max(48, 8 / p.eps)))
+    return Problem("layer", "poisson", Rectangle(), f=m.f, g=m.u, exact=m.u, params={"eps": p.eps},
+                   source="manufactured boundary-layer solution (after Mitchell 2013); f by sympy",
+                   eval_level=level)
+
+
+@dataclasses.dataclass
+class ExprParams:
+    u: str = "sin(pi*x)*sin(pi*y)"
+    domain: dict = dataclasses.field(default_factory=lambda: {"kind": "rectangle"})
+    eval_level: int = 48
+
+    def __post_init__(self):
+        positive("eval_level", self.eval_level, integer=True, maximum=2048)
+
+
+def expr(p: ExprParams) -> Problem:
+    """Manufactured solution from an expression string for u(x, y) on any domain.
+
+    sympy derives f = -Laplace(u) and the Dirichlet data g = u; the string is parsed safely
+    (bench.expr). Source: method of manufactured solutions [common practice].
+    """
+    from bench.expr import Manufactured
+
+    m = Manufactured(p.u, field="problem.u")
+    d = make_domain(p.domain)
+    return Problem("expr", "laplace" if m.is_harmonic else "poisson", d, f=None if m.is_harmonic else m.f,
+                   g=m.u, exact=m.u, params={"u": p.u},
+                   source=f"manufactured: u = {p.u}; f = -Laplace(u) by sympy",
+                   eval_level=p.eval_level)
+
+
+# name -> (Params schema, builder, one-line description)
+PROBLEMS: dict[str, tuple[type, Callable, str]] = {
+    "sine": (SineParams, sine, "Poisson sine mode sin(k pi x) sin(l pi y) on a rectangle"),
+    "harmonic": (HarmonicParams, harmonic, "Laplace, u = exp(w x) cos(w y), nonzero data on all edges"),
+    "plate": (PlateParams, plate, "steady heated plate: Laplace, hot top edge, Fourier-series solution"),
+    "peak": (PeakParams, peak, "Gaussian peak (Mitchell 2013), width knob alpha"),
+    "wavefront": (WavefrontParams, wavefront, "circular wave front (Mitchell 2013), sharpness alpha"),
+    "layer": (LayerParams, layer, "manufactured boundary layers of width eps at x=1, y=1"),
+    "expr": (ExprParams, expr, "manufactured solution from an expression for u(x, y), any domain"),
+}
+
+
+def register_problem(name: str, params: type, builder: Callable, description: str) -> None:
+    """Add a catalogue entry (used by shape and eigen modules)."""
+    PROBLEMS[name] = (params, builder, description)
+
+
+def make_problem(cfg) -> Problem:
+    """Build a problem from its config mapping (``name`` plus the builder's fields)."""
+    if hasattr(cfg, "items") and not isinstance(cfg, dict):
+        from omegaconf import OmegaConf
+
+        cfg = OmegaConf.to_container(cfg, resolve=True)
+    cfg = dict(cfg)
+    name = cfg.get("name")
+    _load_extensions()
+    if name not in PROBLEMS:
+        raise ConfigError(f"`problem.name` must be one of {', '.join(sorted(PROBLEMS))}; got {name!r}")
+    schema, builder, _ = PROBLEMS[name]
+    params = build_params(schema, cfg, prefix="problem")
+    return builder(params)
+
+
+_EXTENSIONS = ()  # modules that register further problems on import (shapes, eigen, ...)
+
+
+def _load_extensions():
+    import importlib
+
+    for mod in _EXTENSIONS:
+        importlib.import_module(mod)

@@ -1,0 +1,209 @@
+"""Records: one JSON file per case, written atomically; the loader turns them into a DataFrame."""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import platform
+import subprocess
+import tempfile
+import warnings
+from functools import lru_cache
+from pathlib import Path
+
+__all__ = ["SCHEMA_VERSION", "STATUSES", "config_hash", "record_path", "write_record", "read_record",
+           "iter_records", "load_records", "to_frame", "environment", "RecordWarning"]
+
+SCHEMA_VERSION = 1
+STATUSES = ("ok", "failed", "timeout", "crashed", "out_of_memory", "diverged", "unsupported")
+RUNS = "runs"
+
+
+class RecordWarning(UserWarning):
+    """An unreadable or foreign file in a results folder (skipped)."""
+
+
+def canonical_json(obj) -> str:
+    return json.dumps(obj, sort_keys=True, separators=(",", ":"), default=str)
+
+
+def config_hash(identity: dict) -> str:
+    """SHA-256 of the canonical JSON of a case's identity (problem, solver, seed, threads, budget)."""
+    return hashlib.sha256(canonical_json(identity).encode()).hexdigest()
+
+
+def _slug(text: str) -> str:
+    return "".join(c if c.isalnum() or c in "-_." else "-" for c in str(text))[:40]
+
+
+def record_path(results_dir: str | Path, problem: str, solver: str, chash: str) -> Path:
+    """results/runs/<problem>__<solver>__<hash16>.json"""
+    return Path(results_dir) / RUNS / f"{_slug(problem)}__{_slug(solver)}__{chash[:16]}.json"
+
+
+def write_record(path: str | Path, record: dict) -> Path:
+    """Write JSON atomically: temp file in the target folder, fsync, chmod 0644, os.replace."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    data = json.dumps(record, indent=1, sort_keys=True, allow_nan=True, default=_json_default)
+    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".json", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    try:
+        dfd = os.open(path.parent, os.O_RDONLY)
+        try:
+            os.fsync(dfd)
+        finally:
+            os.close(dfd)
+    except OSError:
+        pass
+    return path
+
+
+def _json_default(o):
+    import numpy as np
+
+    if isinstance(o, np.integer):
+        return int(o)
+    if isinstance(o, np.floating):
+        return float(o)
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    return str(o)
+
+
+def read_record(path: str | Path) -> dict | None:
+    """A record, or None (with a RecordWarning) when the file is unreadable or foreign."""
+    path = Path(path)
+    try:
+        with open(path) as fh:
+            rec = json.load(fh)
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        warnings.warn(f"skipping unreadable record {path}: {exc}", RecordWarning, stacklevel=2)
+        return None
+    if not isinstance(rec, dict) or rec.get("schema_version") != SCHEMA_VERSION or "status" not in rec \
+            or not isinstance(rec.get("problem"), dict) or not isinstance(rec.get("solver"), dict):
+        warnings.warn(f"skipping foreign or incompatible file {path} (not a lapbench record "
+                      f"of schema version {SCHEMA_VERSION})", RecordWarning, stacklevel=2)
+        return None
+    return rec
+
+
+def iter_records(results_dirs):
+    """Yield every valid record under the given results folders (their runs/ subfolder, or the
+    folder itself when it holds records directly)."""
+    if isinstance(results_dirs, (str, Path)):
+        results_dirs = [results_dirs]
+    for d in results_dirs:
+        d = Path(d)
+        base = d / RUNS if (d / RUNS).is_dir() else d
+        if not base.is_dir():
+            continue
+        for p in sorted(base.rglob("*.json")):
+            if p.name.startswith(".tmp-"):
+                continue
+            rec = read_record(p)
+            if rec is not None:
+                yield rec
+
+
+def load_records(results_dirs, suite: str | None = None, problem: str | None = None,
+                 solver: str | None = None) -> list[dict]:
+    """Valid records, optionally filtered by suite, problem id/label and solver name."""
+    out = []
+    for rec in iter_records(results_dirs):
+        if suite is not None and rec.get("suite") != suite:
+            continue
+        if problem is not None and problem not in (rec["problem"].get("label"), rec["problem"].get("id"),
+                                                   rec["problem"].get("name")):
+            continue
+        if solver is not None and rec["solver"].get("name") != solver:
+            continue
+        out.append(rec)
+    return out
+
+
+def to_frame(records):
+    """Flatten records into a pandas DataFrame, one row per case."""
+    import pandas as pd
+
+    rows = []
+    for r in records:
+        m = r.get("metrics") or {}
+        t = r.get("timings") or {}
+        c = r.get("cost") or {}
+        row = {
+            "case_id": r.get("case_id"), "suite": r.get("suite"),
+            "problem": r["problem"].get("label"), "problem_id": r["problem"].get("id"),
+            "kind": r["problem"].get("kind"), "domain": (r["problem"].get("domain") or {}).get("kind"),
+            "solver": r["solver"].get("name"), "family": r["solver"].get("family"),
+            "resolution": r["solver"].get("resolution_label"),
+            "seed": r.get("seed"), "threads": r.get("threads"), "status": r.get("status"),
+            "reason": r.get("reason", ""),
+            "dofs": c.get("dofs"), "n_params": c.get("params"), "iterations": c.get("iterations"),
+            "h": c.get("h"), "peak_rss_mb": c.get("peak_rss_mb"),
+            "t_setup": t.get("setup"), "t_solve": t.get("solve"), "t_evaluate": t.get("evaluate"),
+            "t_total": t.get("total"), "t_wall": t.get("wall"),
+        }
+        for k, v in m.items():
+            if isinstance(v, (int, float)) or v is None:
+                row[k] = v
+        for k, v in (r["solver"].get("resolution") or {}).items():
+            row[f"res_{k}"] = v
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+@lru_cache(maxsize=1)
+def _static_environment() -> dict:
+    from importlib import metadata
+
+    versions = {}
+    for pkg in ("lapbench", "numpy", "scipy", "torch", "pyamg", "scikit-fem", "sympy", "hydra-core",
+                "pandas", "threadpoolctl"):
+        try:
+            versions[pkg] = metadata.version(pkg)
+        except metadata.PackageNotFoundError:
+            versions[pkg] = None
+    cpu = platform.processor() or ""
+    try:
+        with open("/proc/cpuinfo") as fh:
+            for line in fh:
+                if line.startswith("model name"):
+                    cpu = line.split(":", 1)[1].strip()
+                    break
+    except OSError:
+        pass
+    return {"versions": versions, "cpu": cpu, "cpu_count": os.cpu_count(),
+            "python": platform.python_version(), "platform": platform.platform(),
+            "host": platform.node(), "git": _git_revision()}
+
+
+def _git_revision() -> str | None:
+    here = Path(__file__).resolve().parent.parent
+    try:
+        out = subprocess.run(["git", "-C", str(here), "rev-parse", "HEAD"], capture_output=True,
+                             text=True, timeout=5)
+        if out.returncode != 0:
+            return None
+        dirty = subprocess.run(["git", "-C", str(here), "status", "--porcelain", "--untracked-files=no"],
+                               capture_output=True, text=True, timeout=5).stdout.strip()
+        return out.stdout.strip() + ("-dirty" if dirty else "")
+    except (OSError, subprocess.SubprocessError):
+        return None
+
+
+def environment() -> dict:
+    """Package versions, CPU model and count, Python, host, git revision (cached per process)."""
+    return dict(_static_environment())

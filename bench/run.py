@@ -1,0 +1,482 @@
+"""Run one case in isolation: fork from the preloaded harness, pin threads, time, measure, record.
+
+Each case runs in a forked child (the parent has already imported numpy/scipy and, for learned
+methods, torch, so the child starts in milliseconds). The parent enforces the wall-clock limit and
+the memory limit, turns every way a case can end (normal return, exception, NaN, timeout, signal,
+memory) into a status, and writes exactly one record atomically.
+"""
+from __future__ import annotations
+
+import dataclasses
+import errno
+import os
+import pickle
+import select
+import signal
+import sys
+import time
+import traceback
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+
+from bench.config import ConfigError, build_params, positive
+from bench.records import SCHEMA_VERSION, config_hash, environment, read_record, record_path, write_record
+
+__all__ = ["Case", "Prepared", "BudgetConfig", "prepare", "execute", "run_case", "make_solver",
+           "MEASURES", "problem_id"]
+
+POLL_INTERVAL = 0.02      # seconds between the parent's memory checks
+KILL_GRACE = 2.0          # seconds the harness adds to a case's time limit for evaluation
+
+
+@dataclasses.dataclass
+class BudgetConfig:
+    """Per-case resources (conf/config.yaml, `budget`)."""
+
+    time_limit: float = 600.0
+    train_time: float | None = None
+    memory_limit_mb: float = 8192.0
+
+    def __post_init__(self):
+        positive("time_limit", self.time_limit)
+        if self.train_time is not None:
+            positive("train_time", self.train_time)
+        positive("memory_limit_mb", self.memory_limit_mb)
+
+
+@dataclasses.dataclass
+class Case:
+    """One case: what to run (configs as plain mappings) and how."""
+
+    problem: dict
+    solver: dict
+    problem_label: str | None = None
+    seed: int = 0
+    threads: int = 1
+    budget: dict = dataclasses.field(default_factory=dict)
+    suite: str | None = None
+    save_field: bool = False
+
+    def identity(self) -> dict:
+        """What makes two cases the same measurement (hashed into the record's file name)."""
+        return {"problem": self.problem, "problem_label": self.problem_label, "solver": self.solver,
+                "seed": self.seed, "threads": self.threads, "budget": self.budget}
+
+
+@dataclasses.dataclass
+class Prepared:
+    case: Case
+    problem: object
+    solver: object
+    budget: object
+    chash: str
+    path: Path
+    unsupported: str | None = None
+
+
+def make_solver(cfg: dict):
+    """Instantiate a solver from its config: registry name, or an importable `_target_` class."""
+    from solvers import get_solver
+
+    cfg = dict(cfg)
+    target = cfg.get("_target_")
+    if target:
+        from bench.plugins import load_plugin_class
+
+        cls = load_plugin_class(target)
+    else:
+        cls = get_solver(cfg.get("name"))
+    return cls(params={k: v for k, v in cfg.items() if k not in ("name", "_target_")})
+
+
+def problem_id(label: str, params: dict) -> str:
+    """``sine(k=4,l=4)``: the problem's label with its knobs, for grouping in reports."""
+    flat = ",".join(f"{k}={v}" for k, v in sorted(params.items()) if not isinstance(v, (dict, list)))
+    return f"{label}({flat})" if flat else label
+
+
+def prepare(case: Case, results_dir: str | Path = "results") -> Prepared:
+    """Validate everything up front (ConfigError on bad input) and locate the record file."""
+    from bench.problems import make_problem
+    from solvers.base import Budget
+
+    b = build_params(BudgetConfig, case.budget, prefix="budget")
+    budget = Budget(time_limit=b.time_limit, train_time=b.train_time, memory_limit_mb=b.memory_limit_mb)
+    positive("threads", case.threads, integer=True, maximum=4096)
+    problem = make_problem(case.problem)
+    solver = make_solver(case.solver)
+    est = getattr(solver, "memory_estimate_mb", lambda: 0.0)()
+    if est and est > budget.memory_limit_mb:
+        raise ConfigError(
+            f"`solver` {solver.name} with {solver.resolution()} needs about {_fmt_mb(est)} of memory, "
+            f"above `budget.memory_limit_mb` = {budget.memory_limit_mb:g} MiB; lower the resolution "
+            f"or raise the limit")
+    ok, reason = solver.supports(problem)
+    chash = config_hash(case.identity())
+    label = case.problem_label or problem.name
+    path = record_path(results_dir, label, solver.name, chash)
+    return Prepared(case, problem, solver, budget, chash, path, None if ok else (reason or "unsupported"))
+
+
+def _fmt_mb(mb: float) -> str:
+    for unit, scale in (("TiB", 2 ** 20), ("GiB", 2 ** 10)):
+        if mb >= scale:
+            return f"{mb / scale:.1f} {unit}"
+    return f"{mb:.0f} MiB"
+
+
+# -- measurement dispatch: problem kind -> function(problem, solution, eval_set) -> metrics dict
+def _solution_metrics(problem, solution, eval_set):
+    from bench.metrics import solution_errors
+
+    return solution_errors(problem, solution, eval_set)
+
+
+MEASURES = {"laplace": _solution_metrics, "poisson": _solution_metrics}
+
+
+def _measure(problem, solution, eval_set) -> dict:
+    if problem.kind not in MEASURES:
+        from bench import eigen_metrics  # noqa: F401  (registers the eigen measure on import)
+    return MEASURES[problem.kind](problem, solution, eval_set)
+
+
+def _monitor_fn(problem, eval_set):
+    """Training-history errors: relative L2 and max abs of an interpolant (harness side)."""
+    from bench.metrics import BadSolution, checked_values
+
+    pts, w = eval_set.points, eval_set.weights
+    u = problem.exact(pts) if problem.exact is not None else None
+    norm = float(np.sqrt(np.sum(w * u * u))) if u is not None else 0.0
+
+    def monitor(evaluate):
+        if u is None:
+            return {}
+        try:
+            e = checked_values(evaluate, pts) - u
+        except BadSolution:
+            return {"rel_l2": float("nan"), "max_abs": float("nan")}
+        num = float(np.sqrt(np.sum(w * e * e)))
+        return {"rel_l2": num / norm if norm > 0 else num, "max_abs": float(np.max(np.abs(e)))}
+
+    return monitor
+
+
+# -- thread pinning and machine load -------------------------------------------------------------
+def effective_threads(requested: int) -> tuple[int, int]:
+    """(threads to use, cores available to this worker). Parallel launchers split the cores."""
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    share = os.environ.get("LAPBENCH_CORES")
+    if share:
+        cores = max(1, min(cores, int(share)))
+    return max(1, min(requested, cores)), cores
+
+
+def _cpu_times() -> tuple[float, float]:
+    """(system-wide busy CPU seconds, this process tree's CPU seconds)."""
+    busy = 0.0
+    try:
+        with open("/proc/stat") as fh:
+            parts = fh.readline().split()[1:]
+        vals = [float(v) for v in parts]
+        tick = os.sysconf("SC_CLK_TCK")
+        busy = (sum(vals[:3]) + sum(vals[5:8])) / tick  # user nice system irq softirq steal
+    except (OSError, ValueError, IndexError):
+        pass
+    t = os.times()
+    return busy, t.user + t.system + t.children_user + t.children_system
+
+
+def _set_pdeathsig():
+    """Let the child die with the harness (a killed driver leaves no orphaned case running)."""
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL("libc.so.6", use_errno=True)
+        libc.prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
+    except OSError:
+        pass
+
+
+def _rss_mb(pid: int) -> tuple[float, float]:
+    """(VmRSS, VmHWM) of a process in MiB, from /proc."""
+    rss = hwm = 0.0
+    try:
+        with open(f"/proc/{pid}/status") as fh:
+            for line in fh:
+                if line.startswith("VmRSS:"):
+                    rss = float(line.split()[1]) / 1024
+                elif line.startswith("VmHWM:"):
+                    hwm = float(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return rss, hwm
+
+
+# -- the child ------------------------------------------------------------------------------------
+def _in_child(prep: Prepared, threads: int) -> dict:
+    """Run the solver and measure it; returns the child part of the record (never raises)."""
+    import random
+
+    from threadpoolctl import threadpool_limits
+
+    from bench.metrics import BadSolution, error_field
+    from solvers.base import Diverged, RunContext, Unsupported
+
+    out: dict = {"status": "ok", "reason": ""}
+    try:
+        with open("/proc/self/clear_refs", "w") as fh:  # reset the peak-RSS counter
+            fh.write("5")
+    except OSError:
+        pass
+    rss0, _ = _rss_mb(os.getpid())
+    random.seed(prep.case.seed)
+    np.random.seed(prep.case.seed % 2 ** 32)
+    if "torch" in sys.modules:
+        import torch
+
+        torch.set_num_threads(threads)
+        torch.manual_seed(prep.case.seed)
+        torch.set_default_dtype(torch.float32)
+    problem = prep.problem
+    eval_set = problem.eval_set(seed=prep.case.seed)
+    progress = sys.stderr.isatty()
+    ctx = RunContext(seed=prep.case.seed, monitor=_monitor_fn(problem, eval_set), progress=progress,
+                     label=f"{prep.case.problem_label} {prep.solver.name}")
+    import scipy.fft
+
+    solution = None
+    try:
+        with threadpool_limits(limits=threads), scipy.fft.set_workers(threads):
+            solution = prep.solver.solve(problem.public(), prep.budget, ctx)
+            t0 = time.perf_counter()
+            out["metrics"] = _measure(problem, solution, eval_set)
+            out["t_evaluate"] = time.perf_counter() - t0
+            if prep.case.save_field and problem.kind != "eigen":
+                out["field"] = error_field(problem, solution)
+    except Unsupported as exc:
+        out.update(status="unsupported", reason=str(exc))
+    except Diverged as exc:
+        out.update(status="diverged", reason=str(exc), step=exc.step)
+    except MemoryError:
+        out.update(status="out_of_memory", reason="MemoryError inside the case")
+    except BadSolution as exc:
+        out.update(status="failed", reason=f"bad solution: {exc}")
+    except Exception as exc:  # noqa: BLE001  (a failing case is a record, not a crash)
+        tb = traceback.extract_tb(exc.__traceback__)
+        where = f" at {Path(tb[-1].filename).name}:{tb[-1].lineno}" if tb else ""
+        out.update(status="failed", reason=f"{type(exc).__name__}: {exc}{where}"[:2000])
+    out["timings"] = dict(ctx.timings)
+    out["monitor_time"] = ctx.monitor_time
+    out["history"] = ctx.history
+    if solution is not None:
+        out["info"] = _jsonable(solution.info)
+        if solution.eigenvalues is not None:
+            out["eigenvalues"] = [float(v) for v in np.asarray(solution.eigenvalues).ravel()]
+    _, hwm = _rss_mb(os.getpid())
+    out["peak_rss_mb"] = hwm
+    out["peak_rss_delta_mb"] = max(0.0, hwm - rss0)
+    return out
+
+
+def _jsonable(info: dict) -> dict:
+    clean = {}
+    for k, v in (info or {}).items():
+        if isinstance(v, (np.integer,)):
+            v = int(v)
+        elif isinstance(v, (np.floating,)):
+            v = float(v)
+        elif isinstance(v, np.ndarray):
+            v = v.tolist() if v.size <= 64 else f"array{v.shape}"
+        if isinstance(v, (str, int, float, bool, type(None), list, dict)):
+            clean[k] = v
+    return clean
+
+
+# -- the parent -----------------------------------------------------------------------------------
+def _fork_and_wait(prep: Prepared, threads: int) -> dict:
+    """Fork, run the case in the child, enforce time and memory limits, collect the result."""
+    rfd, wfd = os.pipe()
+    limit_s = prep.budget.time_limit
+    limit_mb = prep.budget.memory_limit_mb
+    sys.stdout.flush()
+    sys.stderr.flush()
+    pid = os.fork()
+    if pid == 0:  # child
+        code = 0
+        try:
+            os.close(rfd)
+            _set_pdeathsig()
+            try:
+                import resource
+
+                # hard backstop above the polled limit: allocation fails instead of swapping
+                _, hard = resource.getrlimit(resource.RLIMIT_AS)
+                with open("/proc/self/status") as fh:
+                    vms = next(float(line.split()[1]) * 1024 for line in fh if line.startswith("VmSize:"))
+                cap = int(vms + 2 * limit_mb * 2 ** 20)
+                if hard == resource.RLIM_INFINITY or cap < hard:
+                    resource.setrlimit(resource.RLIMIT_AS, (cap, hard))
+            except (OSError, ValueError, StopIteration):
+                pass
+            result = _in_child(prep, threads)
+            data = pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL)
+            view = memoryview(data)
+            while view:
+                n = os.write(wfd, view)
+                view = view[n:]
+        except BaseException:  # noqa: BLE001
+            code = 70
+        finally:
+            os._exit(code)
+    os.close(wfd)
+    t0 = time.perf_counter()
+    chunks: list[bytes] = []
+    status = None
+    reason = ""
+    peak_seen = 0.0
+    exit_status = None
+    try:
+        while True:
+            remaining = limit_s + KILL_GRACE - (time.perf_counter() - t0)
+            if remaining <= 0:
+                status, reason = "timeout", f"exceeded the time limit of {limit_s:g} s (killed)"
+                break
+            ready, _, _ = select.select([rfd], [], [], min(POLL_INTERVAL, remaining))
+            if ready:
+                data = os.read(rfd, 1 << 20)
+                if not data:
+                    break  # child closed the pipe: finished or died
+                chunks.append(data)
+                continue
+            rss, _ = _rss_mb(pid)
+            peak_seen = max(peak_seen, rss)
+            if rss > limit_mb:
+                status = "out_of_memory"
+                reason = f"resident memory {rss:.0f} MiB exceeded the limit of {limit_mb:g} MiB (killed)"
+                break
+            done, st = os.waitpid(pid, os.WNOHANG)
+            if done:
+                exit_status = st
+                # drain whatever is left in the pipe
+                while True:
+                    data = os.read(rfd, 1 << 20)
+                    if not data:
+                        break
+                    chunks.append(data)
+                break
+    finally:
+        if status in ("timeout", "out_of_memory"):
+            try:
+                os.kill(pid, signal.SIGKILL)
+            except ProcessLookupError:
+                pass
+        if exit_status is None:
+            try:
+                _, exit_status = os.waitpid(pid, 0)
+            except ChildProcessError:
+                exit_status = 0
+        os.close(rfd)
+    wall = time.perf_counter() - t0
+    if status is not None:
+        return {"status": status, "reason": reason, "wall": wall, "peak_rss_mb": peak_seen}
+    if chunks:
+        try:
+            result = pickle.loads(b"".join(chunks))
+            result["wall"] = wall
+            return result
+        except Exception:  # noqa: BLE001  (truncated pipe: the child died while writing)
+            pass
+    if os.WIFSIGNALED(exit_status):
+        sig = os.WTERMSIG(exit_status)
+        name = signal.Signals(sig).name if sig in signal.Signals._value2member_map_ else str(sig)
+        if sig == signal.SIGKILL and peak_seen > 0.8 * limit_mb:
+            return {"status": "out_of_memory", "reason": f"killed by {name} near the memory limit",
+                    "wall": wall, "peak_rss_mb": peak_seen}
+        return {"status": "crashed", "reason": f"case process killed by signal {name}", "wall": wall,
+                "peak_rss_mb": peak_seen}
+    code = os.WEXITSTATUS(exit_status) if os.WIFEXITED(exit_status) else -1
+    return {"status": "crashed", "reason": f"case process exited with code {code} without a result",
+            "wall": wall, "peak_rss_mb": peak_seen}
+
+
+def execute(prep: Prepared, force: bool = False) -> tuple[dict, bool]:
+    """Run a prepared case unless its record exists; returns (record, skipped)."""
+    if not force and prep.path.exists():
+        rec = read_record(prep.path)
+        if rec is not None:
+            return rec, True
+    threads, cores = effective_threads(prep.case.threads)
+    started = datetime.now(timezone.utc).isoformat(timespec="seconds")
+    load0 = os.getloadavg()[0] if hasattr(os, "getloadavg") else None
+    busy0, own0 = _cpu_times()
+    if prep.unsupported is not None:
+        child = {"status": "unsupported", "reason": prep.unsupported, "wall": 0.0}
+    else:
+        type(prep.solver).preload()
+        child = _fork_and_wait(prep, threads)
+    busy1, own1 = _cpu_times()
+    wall = child.get("wall", 0.0)
+    foreign = max(0.0, (busy1 - busy0) - (own1 - own0))
+    record = _build_record(prep, child, threads, cores, started, {
+        "loadavg_1min_start": load0,
+        "loadavg_1min_end": os.getloadavg()[0] if hasattr(os, "getloadavg") else None,
+        "foreign_cpu_s": foreign,
+        "foreign_load": foreign / wall if wall > 0.05 else None,
+    })
+    write_record(prep.path, record)
+    return record, False
+
+
+def _build_record(prep: Prepared, child: dict, threads: int, cores: int, started: str, load: dict) -> dict:
+    case, solver, problem = prep.case, prep.solver, prep.problem
+    info = child.get("info") or {}
+    timings = dict(child.get("timings") or {})
+    total = sum(v for v in timings.values())
+    timings.update(total=total, evaluate=child.get("t_evaluate"), monitor=child.get("monitor_time", 0.0),
+                   wall=child.get("wall"))
+    resolution = solver.resolution()
+    label = case.problem_label or problem.name
+    rec = {
+        "schema_version": SCHEMA_VERSION,
+        "case_id": prep.chash[:16],
+        "config_hash": prep.chash,
+        "created": started,
+        "suite": case.suite,
+        "problem": {**problem.describe(), "label": label, "id": problem_id(label, problem.params),
+                    "config": case.problem},
+        "solver": {"name": solver.name, "family": solver.family, "config": case.solver,
+                   "resolution": resolution,
+                   "resolution_label": ",".join(f"{k}={v}" for k, v in resolution.items()),
+                   "deterministic": solver.tags.deterministic,
+                   **getattr(solver, "provenance", lambda: {})()},
+        "seed": case.seed,
+        "threads": threads,
+        "threads_requested": case.threads,
+        "cores_available": cores,
+        "budget": dataclasses.asdict(prep.budget),
+        "status": child.get("status", "failed"),
+        "reason": child.get("reason", ""),
+        "metrics": child.get("metrics") or {},
+        "timings": timings,
+        "cost": {"dofs": info.get("dofs"), "params": info.get("params"), "iterations": info.get("iterations"),
+                 "h": info.get("h"), "peak_rss_mb": child.get("peak_rss_mb"),
+                 "peak_rss_delta_mb": child.get("peak_rss_delta_mb")},
+        "info": info,
+        "history": child.get("history") or [],
+        "environment": {**environment(), **load},
+    }
+    if "step" in child:
+        rec["step"] = child["step"]
+    if "eigenvalues" in child:
+        rec["eigenvalues"] = child["eigenvalues"]
+    if "field" in child:
+        rec["field"] = child["field"]
+    return rec
+
+
+def run_case(case: Case, results_dir: str | Path = "results", force: bool = False) -> tuple[dict, bool]:
+    """prepare + execute: validate, then run isolated and write the record."""
+    return execute(prepare(case, results_dir), force=force)

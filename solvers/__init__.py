@@ -1,0 +1,26 @@
+"""Solvers: one module per method family, all registered in SOLVERS (key = conf/solver/<key>.yaml)."""
+from solvers.base import Budget, Diverged, RunContext, Solution, Solver, Tags, Unsupported
+from solvers.fast_poisson import FST5, FST9
+from solvers.fd import FD5, FD9
+from solvers.spectral import Chebyshev
+
+# The one registry: name -> class. Later families add their entries here.
+SOLVERS: dict[str, type[Solver]] = {
+    "fd5": FD5,
+    "fd9": FD9,
+    "fst5": FST5,
+    "fst9": FST9,
+    "cheb": Chebyshev,
+}
+
+__all__ = ["SOLVERS", "Solver", "Solution", "Budget", "RunContext", "Tags", "Unsupported",
+           "Diverged", "get_solver"]
+
+
+def get_solver(name: str) -> type[Solver]:
+    """The registered solver class `name`, or a ConfigError listing the valid names."""
+    from bench.config import ConfigError
+
+    if name not in SOLVERS:
+        raise ConfigError(f"`solver.name` must be one of {', '.join(sorted(SOLVERS))}; got {name!r}")
+    return SOLVERS[name]
