@@ -19,6 +19,8 @@ commands:
   run      run one case, a --multirun sweep, or a named suite (suite=<name>)
   list     problems, solvers (one line each) and which pairings are supported
   report   tables of the records (options: report.<key>=...)
+  check    compare a suite's records with results/baseline/<suite>.json (exit 0 / 1 regression)
+  baseline write results/baseline/<suite>.json from a suite's records (options: check.<key>=...)
 
 examples:
   lapbench run problem=peak solver=fd9 solver.n=128
@@ -171,6 +173,10 @@ def compose_case(overrides: list[str]):
         key = p.key_or_group
         if p.is_sweep_override():
             raise ConfigError(f"`{key}`: sweep values need --multirun (got {o!r})")
+        if p.is_add() and "." not in key and not key.startswith("hydra") and not _group_options(key):
+            # `+foo=1` would add a root field that nothing reads: a typo, refused like any unknown key
+            known = ", ".join(sorted(str(k) for k in _compose_cached(()).keys() if k != "hydra"))
+            raise ConfigError(f"`{key}` is not a known field; known fields: {known}")
         if "." in key and not key.startswith("hydra") and not p.is_add() and not p.is_delete() \
                 and p.package is None:
             values.append((key, p.value(), o))
@@ -318,7 +324,24 @@ def _progress_line(text: str, total: int | None):
             bar.close()
             _PROGRESS["bar"] = None
     else:
-        print(text, flush=True)
+        # one write per line: parallel workers share this stream and must not interleave mid-line
+        sys.stdout.write(text + "\n")
+        sys.stdout.flush()
+
+
+def _worker_share(hc) -> int | None:
+    """This worker's share of the cores under the sweep's Hydra launcher (None: sequential)."""
+    from omegaconf import OmegaConf
+
+    from bench.run import launcher_share
+
+    try:
+        launcher = OmegaConf.to_container(hc.launcher, resolve=True)
+    except Exception:  # noqa: BLE001  (an unresolvable launcher field: no share, cores stay capped by affinity)
+        return None
+    if hc.mode.name != "MULTIRUN":
+        return None
+    return launcher_share(launcher)
 
 
 def job(cfg) -> None:
@@ -342,7 +365,7 @@ def job(cfg) -> None:
         cfg = compose_case(cases[int(index)] + task)
     case, opts = case_from_cfg(cfg)
     prep = prepare(case, opts.results_dir)
-    rec, skipped = execute(prep, force=opts.force)
+    rec, skipped = execute(prep, force=opts.force, cores=_worker_share(hc))
     n = (index + 1) if index is not None else (hc.job.num + 1 if hc.mode.name == "MULTIRUN" else 1)
     err = rec.get("metrics", {}).get("rel_l2")
     t = rec.get("timings", {}).get("total")
@@ -486,7 +509,9 @@ def cmd_report(argv: list[str]) -> int:
     return 0
 
 
-COMMANDS = {"run": cmd_run, "list": cmd_list, "report": cmd_report}
+from bench.check import cmd_baseline, cmd_check  # noqa: E402  (the check stage: bench/check.py)
+
+COMMANDS = {"run": cmd_run, "list": cmd_list, "report": cmd_report, "check": cmd_check, "baseline": cmd_baseline}
 
 
 def main(argv: list[str] | None = None) -> int:

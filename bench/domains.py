@@ -233,7 +233,9 @@ DOMAIN_KINDS: dict[str, type] = {"rectangle": Rectangle}
 def make_domain(cfg: dict, field: str = "problem.domain") -> Domain:
     """Build a domain from its config mapping ``{kind: ..., <geometry>}``."""
     from bench.config import build_params
+    from bench.problems import _load_extensions
 
+    _load_extensions()  # shape modules register their domain kinds on import
     cfg = dict(cfg)
     kind = cfg.pop("kind", "rectangle")
     if kind not in DOMAIN_KINDS:

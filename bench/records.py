@@ -155,6 +155,11 @@ def to_frame(records):
             "h": c.get("h"), "peak_rss_mb": c.get("peak_rss_mb"),
             "t_setup": t.get("setup"), "t_solve": t.get("solve"), "t_evaluate": t.get("evaluate"),
             "t_total": t.get("total"), "t_wall": t.get("wall"),
+            # one configuration = everything but the seed (reports group seeds by it)
+            "config_key": config_hash({"solver": r["solver"].get("config"), "budget": r.get("budget"),
+                                       "threads": r.get("threads_requested", r.get("threads"))})[:16],
+            "train_time": (r.get("budget") or {}).get("train_time"),
+            "has_field": isinstance(r.get("field"), dict),
         }
         for k, v in m.items():
             if isinstance(v, (int, float)) or v is None:

@@ -25,7 +25,7 @@ from bench.config import ConfigError, build_params, positive
 from bench.records import SCHEMA_VERSION, config_hash, environment, read_record, record_path, write_record
 
 __all__ = ["Case", "Prepared", "BudgetConfig", "prepare", "execute", "run_case", "make_solver",
-           "MEASURES", "problem_id"]
+           "MEASURES", "problem_id", "effective_threads", "launcher_share"]
 
 POLL_INTERVAL = 0.02      # seconds between the parent's memory checks
 KILL_GRACE = 2.0          # seconds the harness adds to a case's time limit for evaluation
@@ -81,13 +81,11 @@ def make_solver(cfg: dict):
     from solvers import get_solver
 
     cfg = dict(cfg)
-    target = cfg.get("_target_")
-    if target:
-        from bench.plugins import load_plugin_class
+    if cfg.get("_target_"):
+        from bench.plugins import make_plugin_solver  # contract check, provenance
 
-        cls = load_plugin_class(target)
-    else:
-        cls = get_solver(cfg.get("name"))
+        return make_plugin_solver(cfg)
+    cls = get_solver(cfg.get("name"))
     return cls(params={k: v for k, v in cfg.items() if k not in ("name", "_target_")})
 
 
@@ -165,13 +163,44 @@ def _monitor_fn(problem, eval_set):
 
 
 # -- thread pinning and machine load -------------------------------------------------------------
-def effective_threads(requested: int) -> tuple[int, int]:
-    """(threads to use, cores available to this worker). Parallel launchers split the cores."""
+def effective_threads(requested: int, share: int | None = None) -> tuple[int, int]:
+    """(threads to use, cores this case may use): parallel workers split the cores.
+
+    The cores start from the CPUs this process may run on (its affinity mask, where a SLURM or
+    cgroup allocation shows) and ``SLURM_CPUS_PER_TASK`` when set. `share` is this worker's part
+    under a parallel launcher (`launcher_share`); the environment variable ``LAPBENCH_CORES`` caps
+    it by hand. A case runs ``min(requested, cores)`` threads, so workers side by side never ask
+    for more threads than there are cores (oversubscription made torch up to 27x slower here).
+    """
     cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
-    share = os.environ.get("LAPBENCH_CORES")
-    if share:
-        cores = max(1, min(cores, int(share)))
-    return max(1, min(requested, cores)), cores
+    for cap in (os.environ.get("SLURM_CPUS_PER_TASK"), share, os.environ.get("LAPBENCH_CORES")):
+        try:
+            if cap is not None and int(cap) > 0:
+                cores = min(cores, int(cap))
+        except ValueError:
+            pass
+    return max(1, min(requested, cores)), max(1, cores)
+
+
+def launcher_share(launcher: dict | None, cores: int | None = None) -> int | None:
+    """Cores one worker of a Hydra launcher may use (None: the launcher runs one case at a time).
+
+    joblib runs ``n_jobs`` workers side by side on one machine (-1: one per core, -2: all but one,
+    as joblib counts), so each gets ``cores // n_jobs``; submitit grants ``cpus_per_task`` per job.
+    """
+    if not launcher:
+        return None
+    target = str(launcher.get("_target_", ""))
+    if cores is None:
+        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    if "joblib" in target:
+        n = launcher.get("n_jobs")
+        n = -1 if n is None else int(n)
+        n_eff = n if n > 0 else max(1, cores + 1 + n)
+        return max(1, cores // n_eff)
+    if "submitit" in target and launcher.get("cpus_per_task"):
+        return max(1, int(launcher["cpus_per_task"]))
+    return None
 
 
 def _cpu_times() -> tuple[float, float]:
@@ -223,7 +252,7 @@ def _in_child(prep: Prepared, threads: int) -> dict:
     from threadpoolctl import threadpool_limits
 
     from bench.metrics import BadSolution, error_field
-    from solvers.base import Diverged, RunContext, Unsupported
+    from solvers.base import Diverged, RunContext, Solution, Unsupported
 
     out: dict = {"status": "ok", "reason": ""}
     try:
@@ -250,7 +279,11 @@ def _in_child(prep: Prepared, threads: int) -> dict:
     solution = None
     try:
         with threadpool_limits(limits=threads), scipy.fft.set_workers(threads):
-            solution = prep.solver.solve(problem.public(), prep.budget, ctx)
+            result = prep.solver.solve(problem.public(), prep.budget, ctx)
+            if not isinstance(result, Solution):  # plug-ins need not inherit Solver.solve's check
+                raise BadSolution(f"solver {prep.solver.name} returned {type(result).__name__}, "
+                                  f"expected solvers.base.Solution")
+            solution = result
             t0 = time.perf_counter()
             out["metrics"] = _measure(problem, solution, eval_set)
             out["t_evaluate"] = time.perf_counter() - t0
@@ -367,8 +400,13 @@ def _fork_and_wait(prep: Prepared, threads: int) -> dict:
                         break
                     chunks.append(data)
                 break
+    except BaseException:
+        # the harness itself is interrupted (Ctrl-C, SIGTERM turned exception): take the case down
+        # with it instead of waiting for it, so that no orphan keeps running after the sweep
+        status = status or "interrupted"
+        raise
     finally:
-        if status in ("timeout", "out_of_memory"):
+        if status in ("timeout", "out_of_memory", "interrupted"):
             try:
                 os.kill(pid, signal.SIGKILL)
             except ProcessLookupError:
@@ -402,13 +440,20 @@ def _fork_and_wait(prep: Prepared, threads: int) -> dict:
             "wall": wall, "peak_rss_mb": peak_seen}
 
 
-def execute(prep: Prepared, force: bool = False) -> tuple[dict, bool]:
-    """Run a prepared case unless its record exists; returns (record, skipped)."""
+def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tuple[dict, bool]:
+    """Run a prepared case unless its record exists; returns (record, skipped).
+
+    `cores` is this worker's share of the machine under a parallel launcher (`launcher_share`).
+    """
     if not force and prep.path.exists():
         rec = read_record(prep.path)
         if rec is not None:
             return rec, True
-    threads, cores = effective_threads(prep.case.threads)
+    threads, cores = effective_threads(prep.case.threads, cores)
+    from bench import calibration
+
+    # machine speed, in the same process and minutes of the case: `lapbench check` divides by it
+    cal = {"calibration_s": calibration.calibration_seconds(), "calibration_kernel": calibration.KERNEL}
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     load0 = os.getloadavg()[0] if hasattr(os, "getloadavg") else None
     busy0, own0 = _cpu_times()
@@ -425,6 +470,7 @@ def execute(prep: Prepared, force: bool = False) -> tuple[dict, bool]:
         "loadavg_1min_end": os.getloadavg()[0] if hasattr(os, "getloadavg") else None,
         "foreign_cpu_s": foreign,
         "foreign_load": foreign / wall if wall > 0.05 else None,
+        **cal,
     })
     write_record(prep.path, record)
     return record, False

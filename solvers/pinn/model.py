@@ -1,0 +1,202 @@
+"""The network: a fully connected net on inputs mapped to [-1, 1]^d, optional random Fourier features.
+
+Besides the plain forward pass the network propagates input derivatives forward through its
+layers (value, gradient and Laplacian in one pass, the "forward Laplacian" idea of R. Li et al.,
+"A computational framework for neural network-based variational Monte Carlo with Forward
+Laplacian", Nature Machine Intelligence 6 (2024) [memory for the venue]). For a layer
+``z = W a + b`` followed by ``a' = sigma(z)``:
+
+    grad z = W grad a,    lap z = W lap a,
+    grad a' = sigma'(z) grad z,    lap a' = sigma'(z) lap z + sigma''(z) |grad z|^2,
+
+so the gradient and Laplacian of the output cost d + 1 extra rows in each matrix product, and
+backpropagation to the weights goes through this one graph. The nested autograd and torch.func
+routes are kept for cross-checking and for the benchmark in ``bench/perf/pinn_step.py``, which
+measures all three on this machine.
+
+This module imports torch at import time; ``solvers.pinn`` imports it only inside the solver.
+"""
+from __future__ import annotations
+
+import math
+
+import torch
+from torch import nn
+
+__all__ = ["Network", "ACTIVATIONS", "LAPLACIAN_METHODS", "activation_derivatives", "torch_dtype"]
+
+ACTIVATIONS = ("tanh", "sin", "silu")
+LAPLACIAN_METHODS = ("forward", "autograd", "func")
+
+
+def torch_dtype(precision: str) -> torch.dtype:
+    """``float32`` or ``float64`` as a torch dtype."""
+    return {"float32": torch.float32, "float64": torch.float64}[precision]
+
+
+def activation_derivatives(name: str, z: torch.Tensor):
+    """``(sigma(z), sigma'(z), sigma''(z))`` for the activation `name`, in closed form."""
+    if name == "tanh":
+        t = torch.tanh(z)
+        s1 = 1.0 - t * t
+        return t, s1, -2.0 * t * s1
+    if name == "sin":
+        s = torch.sin(z)
+        return s, torch.cos(z), -s
+    if name == "silu":
+        # silu(z) = z sigmoid(z): smooth, ReLU-like for large |z|
+        sg = torch.sigmoid(z)
+        one_m = 1.0 - sg
+        return z * sg, sg * (1.0 + z * one_m), sg * one_m * (2.0 + z * (1.0 - 2.0 * sg))
+    raise ValueError(f"unknown activation {name!r}; valid: {', '.join(ACTIVATIONS)}")
+
+
+def _activation(name: str):
+    return {"tanh": torch.tanh, "sin": torch.sin, "silu": nn.functional.silu}[name]
+
+
+class Network(nn.Module):
+    """Fully connected network ``R^d -> R`` with inputs scaled to [-1, 1]^d.
+
+    Parameters
+    ----------
+    bbox : sequence of float
+        ``(x0, x1, y0, y1)``: the box mapped affinely onto [-1, 1]^2.
+    width, depth : int
+        Neurons per hidden layer and number of hidden layers.
+    activation : {'tanh', 'sin', 'silu'}
+    fourier_features : int
+        Number m of random Fourier frequencies (0: none). The first layer then sees
+        ``[cos(2 pi B^T x), sin(2 pi B^T x)]`` with B of shape (d, m), entries N(0, scale^2)
+        (Tancik et al., NeurIPS 2020; Wang, Wang & Perdikaris, CMAME 384, 2021). B is fixed.
+    fourier_scale : float
+        Standard deviation of the entries of B (frequencies per unit of the scaled input).
+    dtype : torch.dtype
+    generator : torch.Generator
+        Fixes the initialisation: Glorot-normal weights (Glorot & Bengio, AISTATS 2010), zero biases.
+    """
+
+    def __init__(self, bbox, width: int = 50, depth: int = 4, activation: str = "tanh",
+                 fourier_features: int = 0, fourier_scale: float = 1.0,
+                 dtype: torch.dtype = torch.float32, generator: torch.Generator | None = None):
+        super().__init__()
+        if activation not in ACTIVATIONS:
+            raise ValueError(f"unknown activation {activation!r}; valid: {', '.join(ACTIVATIONS)}")
+        x0, x1, y0, y1 = (float(v) for v in bbox)
+        self.dim = 2
+        self.activation = activation
+        self._act = _activation(activation)
+        self.register_buffer("center", torch.tensor([(x0 + x1) / 2, (y0 + y1) / 2], dtype=dtype))
+        self.register_buffer("scale", torch.tensor([2.0 / (x1 - x0), 2.0 / (y1 - y0)], dtype=dtype))
+        if fourier_features > 0:
+            B = torch.randn(self.dim, fourier_features, generator=generator, dtype=torch.float64)
+            # stored as the weight of a bias-free linear map x -> 2 pi B^T x
+            self.register_buffer("fourier", (2 * math.pi * fourier_scale * B.T).to(dtype))
+            n_in = 2 * fourier_features
+        else:
+            self.fourier = None
+            n_in = self.dim
+        sizes = [n_in] + [width] * depth + [1]
+        self.layers = nn.ModuleList(nn.Linear(a, b, dtype=dtype) for a, b in zip(sizes[:-1], sizes[1:]))
+        with torch.no_grad():
+            for lin in self.layers:
+                nn.init.xavier_normal_(lin.weight, generator=generator)
+                lin.bias.zero_()
+
+    @property
+    def n_parameters(self) -> int:
+        return sum(p.numel() for p in self.parameters())
+
+    # -- plain forward ---------------------------------------------------------------------------
+    def features(self, x: torch.Tensor) -> torch.Tensor:
+        """Scaled inputs, or their Fourier features."""
+        z = (x - self.center) * self.scale
+        if self.fourier is not None:
+            z = z @ self.fourier.T
+            z = torch.cat([torch.cos(z), torch.sin(z)], dim=-1)
+        return z
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        """Network values at points ``x`` of shape (n, d) -> (n,)."""
+        a = self.features(x)
+        for lin in self.layers[:-1]:
+            a = self._act(lin(a))
+        return self.layers[-1](a).squeeze(-1)
+
+    # -- value, gradient and Laplacian -------------------------------------------------------------
+    def derivatives(self, x: torch.Tensor, order: int = 2, method: str = "forward"):
+        """``(u, grad u, lap u)`` (order 2) or ``(u, grad u, None)`` (order 1) at points (n, d).
+
+        ``method`` is one of ``forward`` (derivatives propagated with the values), ``autograd``
+        (nested torch.autograd.grad with create_graph) or ``func`` (torch.func jacrev/hessian
+        under vmap). All three are differentiable with respect to the weights.
+        """
+        if method == "forward":
+            return self._forward_derivatives(x, order)
+        if method == "autograd":
+            return self._autograd_derivatives(x, order)
+        if method == "func":
+            return self._func_derivatives(x, order)
+        raise ValueError(f"unknown Laplacian method {method!r}; valid: {', '.join(LAPLACIAN_METHODS)}")
+
+    def _forward_derivatives(self, x, order):
+        d = self.dim
+        n = x.shape[0]
+        v = (x - self.center) * self.scale
+        # T holds the d gradient rows and (order 2) the Laplacian row: shape (d [+1], n, width)
+        eye = torch.diag(self.scale).to(x.dtype)                      # d(scaled x_j)/dx_i
+        rows = [eye[i].expand(n, d) for i in range(d)]
+        if order == 2:
+            rows.append(torch.zeros(n, d, dtype=x.dtype, device=x.device))
+        T = torch.stack(rows)
+        if order == 2:
+            lap_mask = torch.zeros(d + 1, 1, 1, dtype=x.dtype, device=x.device)
+            lap_mask[d] = 1.0
+        if self.fourier is not None:
+            z = v @ self.fourier.T
+            T = T @ self.fourier.T
+            c, s = torch.cos(z), torch.sin(z)
+            v = torch.cat([c, s], dim=-1)
+            Tn = torch.cat([-s * T, c * T], dim=-1)
+            if order == 2:
+                sq = (T[:d] ** 2).sum(0)
+                Tn = Tn + torch.cat([-c * sq, -s * sq], dim=-1) * lap_mask
+            T = Tn
+        for lin in self.layers[:-1]:
+            z = lin(v)
+            T = T @ lin.weight.T
+            v, s1, s2 = activation_derivatives(self.activation, z)
+            if order == 2:
+                T = s1 * T + (s2 * (T[:d] ** 2).sum(0)) * lap_mask
+            else:
+                T = s1 * T
+        last = self.layers[-1]
+        u = last(v).squeeze(-1)
+        T = (T @ last.weight.T).squeeze(-1)                           # (d [+1], n)
+        grad = T[:d].T
+        return u, grad, (T[d] if order == 2 else None)
+
+    def _autograd_derivatives(self, x, order):
+        x = x.detach().requires_grad_(True)
+        u = self.forward(x)
+        (grad,) = torch.autograd.grad(u.sum(), x, create_graph=True)
+        if order == 1:
+            return u, grad, None
+        lap = torch.zeros_like(u)
+        for i in range(self.dim):
+            (gi,) = torch.autograd.grad(grad[:, i].sum(), x, create_graph=True)
+            lap = lap + gi[:, i]
+        return u, grad, lap
+
+    def _func_derivatives(self, x, order):
+        from torch.func import hessian, jacrev, vmap
+
+        def single(p):
+            return self.forward(p[None])[0]
+
+        u = self.forward(x)
+        grad = vmap(jacrev(single))(x)
+        if order == 1:
+            return u, grad, None
+        H = vmap(hessian(single))(x)
+        return u, grad, H.diagonal(dim1=-2, dim2=-1).sum(-1)
