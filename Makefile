@@ -20,7 +20,7 @@ install-test: $(VENV)/.installed-test
 
 bench: install
 	$(VENV)/bin/lapbench run suite=default
-	$(VENV)/bin/lapbench report report.suite=default
+	$(VENV)/bin/lapbench report report.suite=default report.name=default
 
 test: install-test
 	$(PY) -m pytest -q

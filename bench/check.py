@@ -104,7 +104,8 @@ class CheckResult:
     notes: list[str] = dataclasses.field(default_factory=list)
 
     def count(self, verdict: str) -> int:
-        return sum(1 for f in self.findings if f.verdict == verdict)
+        """Cases (or seed groups) with at least one finding of this verdict."""
+        return len({f.key for f in self.findings if f.verdict == verdict})
 
     @property
     def failed(self) -> bool:
@@ -299,9 +300,10 @@ def _display_verdict(f: Finding) -> str:
 
 def format_table(result: CheckResult, show_all: bool = False) -> str:
     """Plain-text table for the terminal: what changed, by how much, against which tolerance."""
-    head = ("result", "case", "check", "baseline", "current", "ratio", "tolerance")
+    head = ("result", "case", "check", "baseline", "current", "ratio", "tolerance", "detail")
     rows = [(_display_verdict(f), f.key, f.check, _cell(f.baseline), _cell(f.current),
-             "-" if f.ratio is None else f"{f.ratio:.3g}", f.limit or f.message) for f in _rows(result, show_all)]
+             "-" if f.ratio is None else f"{f.ratio:.3g}", f.limit or "-", f.message or "-")
+            for f in _rows(result, show_all)]
     lines = [result.headline()]
     lines += [f"note: {n}" for n in result.notes]
     if rows:

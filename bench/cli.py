@@ -21,12 +21,14 @@ commands:
   report   tables of the records (options: report.<key>=...)
   check    compare a suite's records with results/baseline/<suite>.json (exit 0 / 1 regression)
   baseline write results/baseline/<suite>.json from a suite's records (options: check.<key>=...)
+  conform  run the solver conformance checks on one solver config (a plug-in's: --config-dir DIR)
 
 examples:
   lapbench run problem=peak solver=fd9 solver.n=128
   lapbench run --multirun problem=sine,peak solver=fd5,fst9 solver.n=32,64,128
   lapbench run suite=default
   lapbench report report.suite=default
+  lapbench conform --config-dir examples/sor_solver/conf solver=sor solver.n=16
 """
 
 
@@ -151,6 +153,14 @@ def _compose_cached(overrides: tuple[str, ...]):
 
 
 _CONFIG_NAME = ["config"]
+_GROUP_CACHE: dict[str, bool] = {}
+
+
+def _is_group(key: str) -> bool:
+    """Whether `key` names a config group (composed by Hydra) rather than a value."""
+    if key not in _GROUP_CACHE:
+        _GROUP_CACHE[key] = "/" in key or bool(_group_options(key))
+    return _GROUP_CACHE[key]
 
 
 def compose_case(overrides: list[str]):
@@ -177,8 +187,8 @@ def compose_case(overrides: list[str]):
             # `+foo=1` would add a root field that nothing reads: a typo, refused like any unknown key
             known = ", ".join(sorted(str(k) for k in _compose_cached(()).keys() if k != "hydra"))
             raise ConfigError(f"`{key}` is not a known field; known fields: {known}")
-        if "." in key and not key.startswith("hydra") and not p.is_add() and not p.is_delete() \
-                and p.package is None:
+        if not key.startswith("hydra") and not p.is_add() and not p.is_delete() and p.package is None \
+                and ("." in key or not _is_group(key)):
             values.append((key, p.value(), o))
         else:
             structural.append(o)
@@ -258,6 +268,18 @@ def _strip(overrides: list[str], keys: tuple[str, ...]) -> list[str]:
     return [o for o in overrides if o.split("=", 1)[0].lstrip("+~") not in keys]
 
 
+def _validate(cfg, overrides: list[str], suite=None) -> None:
+    """Build and prepare one composed case; a bad field's error names the file or override that set it."""
+    from bench.plugins import annotate_config_error
+    from bench.run import prepare
+
+    try:
+        case, opts = case_from_cfg(cfg)
+        prepare(case, opts.results_dir)
+    except ConfigError as exc:
+        raise annotate_config_error(exc, cfg, overrides, suite=suite) from None
+
+
 def plan_run(args: Args):
     """Compose and validate every case of the request; returns (cases as override lists, suite size).
 
@@ -266,7 +288,6 @@ def plan_run(args: Args):
     from hydra._internal.core_plugins.basic_sweeper import BasicSweeper
     from hydra.core.override_parser.overrides_parser import OverridesParser
 
-    from bench.run import prepare
     from bench.suites import expand_suite
 
     base = args.searchpath_overrides() + args.overrides
@@ -295,11 +316,9 @@ def plan_run(args: Args):
             rest = _strip(combo, ("suite", "case_index"))
             for case_ov in cases:
                 ccfg = compose_case(case_ov + rest)
-                case, opts = case_from_cfg(ccfg)
-                prepare(case, opts.results_dir)
+                _validate(ccfg, rest, suite=(suite.get("name"), case_ov))
             return [combo], len(cases)
-        case, opts = case_from_cfg(cfg)
-        prepare(case, opts.results_dir)
+        _validate(cfg, combo)
         planned.append(combo)
     return planned, None
 
@@ -364,6 +383,8 @@ def job(cfg) -> None:
         task = _strip(list(hc.overrides.task), ("suite", "case_index"))
         cfg = compose_case(cases[int(index)] + task)
     case, opts = case_from_cfg(cfg)
+    if suite.get("name") and index is not None:
+        case.suite = suite.get("name")  # the case was composed without `suite=`; its record keeps the name
     prep = prepare(case, opts.results_dir)
     rec, skipped = execute(prep, force=opts.force, cores=_worker_share(hc))
     n = (index + 1) if index is not None else (hc.job.num + 1 if hc.mode.name == "MULTIRUN" else 1)
@@ -510,8 +531,10 @@ def cmd_report(argv: list[str]) -> int:
 
 
 from bench.check import cmd_baseline, cmd_check  # noqa: E402  (the check stage: bench/check.py)
+from bench.plugins import cmd_conform  # noqa: E402  (plug-in conformance: bench/plugins.py)
 
-COMMANDS = {"run": cmd_run, "list": cmd_list, "report": cmd_report, "check": cmd_check, "baseline": cmd_baseline}
+COMMANDS = {"run": cmd_run, "list": cmd_list, "report": cmd_report, "check": cmd_check, "baseline": cmd_baseline,
+            "conform": cmd_conform}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -46,6 +46,12 @@ def _fail(field: str, text: str, why: str):
                           f"+ - * / ** and the functions {', '.join(sorted(FUNCTIONS))}")
 
 
+def _short(value) -> str:
+    """repr of a literal, cut to keep the error one short line (a 2000-digit integer is not)."""
+    text = repr(value)
+    return text if len(text) <= 24 else f"{text[:20]}...({len(text)} characters)"
+
+
 def _literal_value(node):
     """Float value of a pure-number subtree (+, -, *, / of literals), or None."""
     if isinstance(node, ast.Constant) and type(node.value) in (int, float):
@@ -70,7 +76,7 @@ def _convert(node, field, text):
         if type(node.value) not in (int, float):
             _fail(field, text, f"literal {node.value!r} is not a number")
         if abs(node.value) > MAX_LITERAL:
-            _fail(field, text, f"literal {node.value!r} exceeds {MAX_LITERAL:g}")
+            _fail(field, text, f"literal {_short(node.value)} exceeds {MAX_LITERAL:g}")
         return sp.Integer(node.value) if type(node.value) is int else sp.Float(node.value)
     if isinstance(node, ast.Name):
         if node.id not in SYMBOLS:
@@ -94,9 +100,11 @@ def _convert(node, field, text):
             _fail(field, text, "division by zero")
         return _BINOPS[type(node.op)](a, b)
     if isinstance(node, ast.Call):
-        if not isinstance(node.func, ast.Name) or node.func.id not in FUNCTIONS:
-            what = node.func.id if isinstance(node.func, ast.Name) else ast.dump(node.func)[:40]
-            _fail(field, text, f"call of unknown function {what!r}")
+        if not isinstance(node.func, ast.Name):
+            _fail(field, text, f"only the named functions may be called (found a call of a "
+                                f"{type(node.func).__name__} node)")
+        if node.func.id not in FUNCTIONS:
+            _fail(field, text, f"call of unknown function {node.func.id!r}")
         if node.keywords:
             _fail(field, text, "keyword arguments are not allowed")
         name = node.func.id

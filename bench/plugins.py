@@ -21,7 +21,7 @@ from pathlib import Path
 
 from bench.config import ConfigError
 
-__all__ = ["load_plugin_class", "check_contract", "make_plugin_solver", "provenance",
+__all__ = ["import_object", "load_plugin_class", "check_contract", "make_plugin_solver", "provenance",
            "CONTRACT_ATTRIBUTES", "CONTRACT_METHODS", "locate_config_file", "annotate_config_error"]
 
 FIELD = "solver._target_"
@@ -31,14 +31,14 @@ CONTRACT_ATTRIBUTES = ("name", "family", "description", "Params", "tags")
 CONTRACT_METHODS = ("supports", "solve", "resolution", "preload")
 
 
-def _import_target(target: str):
-    """The object at ``package.module.Attr`` (or ``package.module:Attr``); ConfigError otherwise."""
+def import_object(target: str, field: str = FIELD):
+    """The object at ``package.module.Attr`` (or ``package.module:Attr``); ConfigError naming `field`."""
     if not isinstance(target, str) or not target.strip():
-        raise ConfigError(f"`{FIELD}` must be an import path such as 'mypackage.module.MySolver', "
+        raise ConfigError(f"`{field}` must be an import path such as 'mypackage.module.MySolver', "
                           f"got {target!r}")
     target = target.strip()
     if not re.fullmatch(r"[A-Za-z_][\w]*(\.[A-Za-z_][\w]*)*(:[A-Za-z_][\w]*(\.[A-Za-z_][\w]*)*)?", target):
-        raise ConfigError(f"`{FIELD}` must be a dotted import path such as 'mypackage.module.MySolver', "
+        raise ConfigError(f"`{field}` must be a dotted import path such as 'mypackage.module.MySolver', "
                           f"got {target!r}")
     if ":" in target:
         module_name, attr_path = target.split(":", 1)
@@ -46,7 +46,7 @@ def _import_target(target: str):
     else:
         parts = target.split(".")
         if len(parts) < 2:
-            raise ConfigError(f"`{FIELD}` {target!r} names no class: write 'module.ClassName'")
+            raise ConfigError(f"`{field}` {target!r} names no class: write 'module.ClassName'")
         candidates = [(".".join(parts[:i]), parts[i:]) for i in range(len(parts) - 1, 0, -1)]
     first_missing = None
     for module_name, attrs in candidates:
@@ -58,10 +58,10 @@ def _import_target(target: str):
             if exc.name is not None and (module_name == exc.name or module_name.startswith(exc.name + ".")):
                 first_missing = first_missing or exc
                 continue
-            raise ConfigError(f"`{FIELD}` cannot import {target!r}: importing module {module_name!r} "
+            raise ConfigError(f"`{field}` cannot import {target!r}: importing module {module_name!r} "
                               f"failed with ModuleNotFoundError: {exc}") from None
         except Exception as exc:  # noqa: BLE001  (any error raised by the plug-in's own module)
-            raise ConfigError(f"`{FIELD}` cannot import {target!r}: importing module {module_name!r} "
+            raise ConfigError(f"`{field}` cannot import {target!r}: importing module {module_name!r} "
                               f"failed with {type(exc).__name__}: {_one_line(exc)}") from None
         obj = module
         for i, attr in enumerate(attrs):
@@ -69,10 +69,10 @@ def _import_target(target: str):
                 obj = getattr(obj, attr)
             except AttributeError:
                 where = ".".join([module_name] + attrs[:i])
-                raise ConfigError(f"`{FIELD}` cannot import {target!r}: {where!r} has no attribute "
+                raise ConfigError(f"`{field}` cannot import {target!r}: {where!r} has no attribute "
                                   f"{attr!r}") from None
         return obj
-    raise ConfigError(f"`{FIELD}` cannot import {target!r}: ModuleNotFoundError: {first_missing} "
+    raise ConfigError(f"`{field}` cannot import {target!r}: ModuleNotFoundError: {first_missing} "
                       f"(is the plug-in's package installed or on PYTHONPATH?)")
 
 
@@ -130,7 +130,7 @@ def load_plugin_class(target: str):
         ``solver._target_`` does not import (the import error is quoted), is not a class, or
         the class lacks part of the contract (each missing method or attribute is named).
     """
-    obj = _import_target(target)
+    obj = import_object(target)
     if not isinstance(obj, type):
         raise ConfigError(f"`{FIELD}` {target!r} is a {type(obj).__name__}, not a class; name a solver "
                           f"class (see DEVELOPERS.md, 'Plug-in solvers')")
@@ -235,17 +235,27 @@ def locate_config_file(cfg, group: str) -> Path | None:
     return None
 
 
-def annotate_config_error(exc: ConfigError, cfg, overrides: list[str]) -> ConfigError:
-    """The same error, saying where the bad ``problem.*``/``solver.*`` field was set."""
+def annotate_config_error(exc: ConfigError, cfg, overrides: list[str], suite=None) -> ConfigError:
+    """The same error, saying where the bad ``problem.*``/``solver.*`` field was set.
+
+    ``suite`` is ``(suite name, the case's overrides from the suite file)`` for suite cases.
+    """
     msg = str(exc)
     m = _FIELD_RE.match(msg)
     if m is None or cfg is None or " (set " in msg:
         return exc
     group, key = m.group(1), m.group(2)
+
+    def sets(o: str) -> bool:
+        return o.split("=", 1)[0].lstrip("+~") == f"{group}.{key}"
+
     for o in overrides:
-        lhs = o.split("=", 1)[0].lstrip("+~")
-        if lhs == f"{group}.{key}":
+        if sets(o) and not o.startswith("hydra."):
             return ConfigError(f"{msg} (set on the command line: {o!r})")
+    if suite is not None:
+        for o in suite[1]:
+            if sets(o):
+                return ConfigError(f"{msg} (set by suite {suite[0]!r}: {o!r})")
     path = locate_config_file(cfg, group)
     if path is None:
         return exc

@@ -445,7 +445,7 @@ def make_problem(cfg) -> Problem:
     return builder(params)
 
 
-_EXTENSIONS = ("bench.shapes",)  # modules that register further problems on import (shapes, eigen, ...)
+_EXTENSIONS = ("bench.shapes", "bench.eigen_problems", "bench.custom")  # modules that register further problems on import (shapes, eigen, ...)
 
 
 def _load_extensions():

@@ -83,19 +83,53 @@ def _json_default(o):
     return str(o)
 
 
+MAX_RECORD_BYTES = 256 * 2 ** 20   # a record with a long history is a few MiB; larger is foreign
+# Fields the loaders read, with the JSON types a record may hold there (None: the field may be
+# absent or null). A file that breaks one of them is foreign and skipped, never a crash later.
+_SHAPE = {"problem": (dict,), "solver": (dict,), "metrics": (dict, None), "timings": (dict, None),
+          "cost": (dict, None), "budget": (dict, None), "environment": (dict, None), "info": (dict, None),
+          "history": (list, None), "reason": (str, None), "suite": (str, None)}
+_NESTED = {("problem", "domain"): (dict, None), ("problem", "label"): (str, None),
+           ("problem", "id"): (str, None), ("solver", "name"): (str,),
+           ("solver", "resolution"): (dict, None), ("solver", "resolution_label"): (str, None)}
+
+
+def _shape_error(rec) -> str | None:
+    """Why a parsed JSON document is not a record this version can read, or None."""
+    if not isinstance(rec, dict):
+        return f"a JSON {type(rec).__name__}, not a record object"
+    if rec.get("schema_version") != SCHEMA_VERSION:
+        return f"schema_version {rec.get('schema_version')!r}, expected {SCHEMA_VERSION}"
+    if rec.get("status") not in STATUSES:
+        return f"status {rec.get('status')!r} is not one of {', '.join(STATUSES)}"
+    checks = [((k,), rec.get(k), t) for k, t in _SHAPE.items()]
+    checks += [((a, b), rec[a].get(b), t) for (a, b), t in _NESTED.items() if isinstance(rec.get(a), dict)]
+    for keys, value, types in checks:
+        if not (value is None and None in types) and not isinstance(value, tuple(t for t in types if t)):
+            return f"field {'.'.join(keys)!r} holds {type(value).__name__}"
+    return None
+
+
 def read_record(path: str | Path) -> dict | None:
     """A record, or None (with a RecordWarning) when the file is unreadable or foreign."""
     path = Path(path)
     try:
-        with open(path) as fh:
+        if not path.is_file():  # a folder, fifo or device named *.json would block or fail open()
+            raise OSError("not a regular file")
+        if path.stat().st_size > MAX_RECORD_BYTES:
+            raise OSError(f"larger than {MAX_RECORD_BYTES // 2 ** 20} MiB")
+        with open(path, encoding="utf-8") as fh:
             rec = json.load(fh)
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        warnings.warn(f"skipping unreadable record {path}: {exc}", RecordWarning, stacklevel=2)
+    except (OSError, UnicodeDecodeError, ValueError, RecursionError) as exc:
+        # ValueError covers malformed JSON and integers beyond Python's digit limit;
+        # RecursionError, absurdly deep nesting
+        warnings.warn(f"skipping unreadable record {path}: {type(exc).__name__}: {str(exc)[:200]}",
+                      RecordWarning, stacklevel=2)
         return None
-    if not isinstance(rec, dict) or rec.get("schema_version") != SCHEMA_VERSION or "status" not in rec \
-            or not isinstance(rec.get("problem"), dict) or not isinstance(rec.get("solver"), dict):
+    why = _shape_error(rec)
+    if why is not None:
         warnings.warn(f"skipping foreign or incompatible file {path} (not a lapbench record "
-                      f"of schema version {SCHEMA_VERSION})", RecordWarning, stacklevel=2)
+                      f"of schema version {SCHEMA_VERSION}: {why})", RecordWarning, stacklevel=2)
         return None
     return rec
 
@@ -152,7 +186,7 @@ def to_frame(records):
             "seed": r.get("seed"), "threads": r.get("threads"), "status": r.get("status"),
             "reason": r.get("reason", ""),
             "dofs": c.get("dofs"), "n_params": c.get("params"), "iterations": c.get("iterations"),
-            "h": c.get("h"), "peak_rss_mb": c.get("peak_rss_mb"),
+            "h": c.get("h"), "peak_rss_mb": c.get("peak_rss_mb"), "peak_rss_delta_mb": c.get("peak_rss_delta_mb"),
             "t_setup": t.get("setup"), "t_solve": t.get("solve"), "t_evaluate": t.get("evaluate"),
             "t_total": t.get("total"), "t_wall": t.get("wall"),
             # one configuration = everything but the seed (reports group seeds by it)

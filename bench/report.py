@@ -43,7 +43,7 @@ from bench.config import ConfigError, in_range, one_of, positive
 
 __all__ = ["ReportConfig", "FigureOptions", "FitOptions", "FieldOptions", "Table", "results_table",
            "to_markdown", "run_points", "pareto_front", "time_to_tolerance", "accuracy_at_budget",
-           "speedup_table", "order_fits", "seed_summary", "status_counts", "build_tables",
+           "speedup_table", "order_fits", "seed_summary", "status_counts", "build_tables", "metric_key", "upper_median",
            "latex_tabular", "write_report", "LEARNED_FAMILIES"]
 
 FORMATS = ("md", "csv", "tex", "html")
@@ -120,7 +120,7 @@ class ReportConfig:
     problem: list[str] | str | None = None
     solver: list[str] | str | None = None
     metric: str = "rel_l2"
-    eigen_metric: str | None = None
+    eigen_metric: str | None = "eig_rel_max"
     tolerances: list[float] = dataclasses.field(default_factory=lambda: [1e-2, 1e-4, 1e-6])
     budgets: list[float] = dataclasses.field(default_factory=lambda: [0.01, 0.1, 1.0, 10.0, 100.0])
     formats: list[str] = dataclasses.field(default_factory=lambda: ["md", "csv"])
@@ -163,6 +163,10 @@ def _load(cfg: ReportConfig):
     """Records matching the filters, and their DataFrame (row i = record i)."""
     from bench.records import load_records, to_frame
 
+    for i, d in enumerate(cfg.results):
+        if not Path(d).is_dir():
+            raise ConfigError(f"`report.results[{i}]` must be an existing results folder, got {d!r} "
+                              "(run `lapbench run ...` first, or point it at a folder that holds runs/)")
     recs = load_records(cfg.results, suite=cfg.suite)
     if cfg.problem:
         want = set(cfg.problem)
@@ -174,17 +178,24 @@ def _load(cfg: ReportConfig):
     if len(frame):
         frame = _with_labels(frame, recs)
         frame["error"] = [_error_of(r, cfg) for r in recs]
+        # the case's own memory: peak resident set above the forked harness it started from
+        # (which holds numpy/scipy and, for learned methods, torch: shared, not the method's)
+        delta = frame["peak_rss_delta_mb"]
+        frame["mem_mb"] = delta.where(delta.notna(), frame["peak_rss_mb"])
     return recs, frame
+
+
+def metric_key(rec: dict, metric: str = "rel_l2", eigen_metric: str | None = None) -> str:
+    """The metric a record is judged by: `eigen_metric` for eigenvalue problems, else `metric`."""
+    if rec["problem"].get("kind") == "eigen" and eigen_metric:
+        return eigen_metric
+    return metric
 
 
 def _error_of(rec: dict, cfg: ReportConfig) -> float:
     """The report's error of a record (NaN when not measured)."""
-    m = rec.get("metrics") or {}
-    key = cfg.metric
-    if rec["problem"].get("kind") == "eigen" and cfg.eigen_metric:
-        key = cfg.eigen_metric
-    v = m.get(key)
-    return float(v) if isinstance(v, (int, float)) and v is not None else float("nan")
+    v = (rec.get("metrics") or {}).get(metric_key(rec, cfg.metric, cfg.eigen_metric))
+    return float(v) if _finite(v) else float("nan")
 
 
 def _flatten(d: dict, prefix: str = "") -> dict:
@@ -238,10 +249,10 @@ def _g(v, spec=".3g") -> str:
 # ------------------------------------------------------------------------------------------------
 # The analysis (pure functions on DataFrames; tested on synthetic records)
 # ------------------------------------------------------------------------------------------------
-def run_points(recs, frame, metric: str = "rel_l2"):
+def run_points(recs, frame, metric: str = "rel_l2", eigen_metric: str | None = None):
     """Every measured (time, error) state of every ``ok`` run: training checkpoints and the final
-    solution. Columns: row (record index), problem_id, solver, family, config_key, label, seed,
-    time, error, final."""
+    solution (its error is ``frame.error``). Columns: row (record index), problem_id, solver,
+    family, config_key, label, seed, time, error, final."""
     import pandas as pd
 
     rows = []
@@ -251,8 +262,9 @@ def run_points(recs, frame, metric: str = "rel_l2"):
         base = {"row": i, "problem_id": frame.at[i, "problem_id"], "solver": frame.at[i, "solver"],
                 "family": frame.at[i, "family"], "config_key": frame.at[i, "config_key"],
                 "label": frame.at[i, "label"], "seed": frame.at[i, "seed"]}
+        key = metric_key(r, metric, eigen_metric)
         for h in r.get("history") or []:
-            t, e = h.get("time"), h.get(metric)
+            t, e = h.get("time"), h.get(key)
             if _finite(t) and _finite(e):
                 rows.append({**base, "time": float(t), "error": float(e), "final": False})
         t, e = (r.get("timings") or {}).get("total"), frame.at[i, "error"]
@@ -297,7 +309,7 @@ def _run_level(frame, points, value_fn):
 def _best_configs(frame, per_run: dict):
     """Aggregate runs -> configurations (upper median over seeds) -> method (best configuration).
 
-    Returns rows (problem_id, solver, family, value, label, seeds_at, seeds, peak_rss_mb, rows)."""
+    Returns rows (problem_id, solver, family, value, label, seeds_at, seeds, mem_mb, all_unsupported)."""
     out = []
     for (pid, solver), g in frame.groupby(["problem_id", "solver"], sort=True):
         best = None
@@ -309,11 +321,11 @@ def _best_configs(frame, per_run: dict):
                 best = cand
         agg, label, _, c, vals = best
         statuses = set(g["status"])
-        rss = c.loc[[i for i in c.index if per_run[i] <= agg], "peak_rss_mb"] if math.isfinite(agg) else []
+        rss = c.loc[[i for i in c.index if per_run[i] <= agg], "mem_mb"] if math.isfinite(agg) else []
         out.append({"problem_id": pid, "solver": solver, "family": g["family"].iloc[0],
                     "value": agg, "label": label if math.isfinite(agg) else "",
                     "seeds_at": int(sum(v <= agg for v in vals)) if math.isfinite(agg) else 0,
-                    "seeds": len(vals), "peak_rss_mb": float(np.nanmax(rss.astype(float)))
+                    "seeds": len(vals), "mem_mb": float(np.nanmax(rss.astype(float)))
                     if len(rss) and rss.notna().any() else float("nan"),
                     "all_unsupported": statuses == {"unsupported"}})
     return out
@@ -337,9 +349,9 @@ def time_to_tolerance(recs, frame, tolerances, metric: str = "rel_l2", points=No
             rows.append({"problem_id": b["problem_id"], "solver": b["solver"], "family": b["family"],
                          "tolerance": float(tol), "time_s": b["value"], "reached": math.isfinite(b["value"]),
                          "config": b["label"], "seeds_reached": b["seeds_at"], "seeds": b["seeds"],
-                         "peak_rss_mb": b["peak_rss_mb"], "unsupported": b["all_unsupported"]})
+                         "mem_mb": b["mem_mb"], "unsupported": b["all_unsupported"]})
     cols = ["problem_id", "solver", "family", "tolerance", "time_s", "reached", "config", "seeds_reached",
-            "seeds", "peak_rss_mb", "unsupported"]
+            "seeds", "mem_mb", "unsupported"]
     return pd.DataFrame(rows, columns=cols)
 
 
@@ -431,8 +443,7 @@ def order_fits(frame, floor: float = 1e-11, points: int = 4):
     the first error at or below `floor` are dropped, and so are those finer than the least error
     (the round-off plateau); from the least error the range extends coarser while the error keeps
     rising (a pre-asymptotic bump ends it); of that range the finest `points` are fitted (0: all).
-    ``order`` is minus the least-squares slope of log error against log h (when every run reports
-    h); ``slope_dofs`` and ``intercept_dofs`` are the least-squares line of log error against
+    ``order`` is the least-squares slope of log error against log h (when every run reports h); ``slope_dofs`` and ``intercept_dofs`` are the least-squares line of log error against
     log dofs (slope about -order/2 in two dimensions). Fewer than two points give NaN and say why.
     """
     import pandas as pd
@@ -476,7 +487,7 @@ def order_fits(frame, floor: float = 1e-11, points: int = 4):
             row.update(slope_dofs=slope, intercept_dofs=icpt, dofs_min=d.min(), dofs_max=d.max(),
                        error_max=e.max(), error_min=e.min())
             if np.all(np.isfinite(h)) and np.all(h > 0) and len(set(h)) >= 2:
-                row.update(order=-_fit_line(h, e)[0], h_max=h.max(), h_min=h.min())
+                row.update(order=_fit_line(h, e)[0], h_max=h.max(), h_min=h.min())
         else:
             row["note"] = (note + "; " if note else "") + "fewer than two usable resolutions"
         rows.append(row)
@@ -579,7 +590,7 @@ def _cell_time(r) -> str:
         return "unsupported"
     if not r["reached"]:
         return NOT_REACHED
-    mem = f", {r['peak_rss_mb']:.0f} MiB" if _finite(r["peak_rss_mb"]) else ""
+    mem = f", {r['mem_mb']:.3g} MiB" if _finite(r["mem_mb"]) else ""
     return f"{_fmt_time(r['time_s'])} ({r['config']}{mem}{_seed_note(r['seeds_reached'], r['seeds'])})"
 
 
@@ -608,7 +619,7 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
     tables: list[Table] = []
     if frame.empty:
         return tables
-    pts = run_points(recs, frame, cfg.metric)
+    pts = run_points(recs, frame, cfg.metric, cfg.eigen_metric)
     tt = time_to_tolerance(recs, frame, cfg.tolerances, cfg.metric, points=pts)
     ab = accuracy_at_budget(recs, frame, cfg.budgets, cfg.metric, points=pts)
     sp = speedup_table(recs, frame, cfg.tolerances, cfg.metric, points=pts)
@@ -624,7 +635,7 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
         tables.append(Table(f"time_to_tolerance__{slug}", f"Time to tolerance: {pid}",
                             f"Least method time in seconds (setup + solve, or setup + training) at which "
                             f"each method's {metric} reached the tolerance; in brackets the configuration, "
-                            f"its peak resident memory and how many of its seeds got there "
+                            f"its memory (peak resident set above the harness, MiB) and how many of its seeds got there "
                             f"(upper median over seeds). First checkpoint at or below the tolerance, "
                             f"no interpolation.", t.reset_index(drop=True),
                             pd.DataFrame(list(disp.values())), pid))
@@ -667,13 +678,14 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
                             for a, b in zip(fits["error_max"], fits["error_min"])],
             "note": fits["note"],
         })
-        floor_txt = f"above {cfg.fit.floor:g} " if cfg.fit.floor > 0 else ""
+        finest = f"the finest {cfg.fit.points}" if cfg.fit.points else "all"
         tables.append(Table("convergence_order", "Observed convergence order of classical methods",
-                            f"Least-squares slope of log {metric} against log h (order = minus the slope) and "
-                            f"against log dofs, over the finest "
-                            f"{cfg.fit.points or 'all'} resolutions {floor_txt}before the error stops "
-                            "decreasing; the range used is shown. Spectral methods converge exponentially, "
-                            "so their slope grows with the range and is not an order.", fits, d))
+                            f"Least-squares slope of log {metric} against log h (the observed order) and "
+                            f"against log dofs, fitted over {finest} resolutions of the range where refining "
+                            f"lowered the error: runs at or below {cfg.fit.floor:g}, finer than the least "
+                            "error (round-off plateau) or before a coarse-grid bump are excluded; the range "
+                            "used is shown. Spectral methods converge exponentially, so their slope grows "
+                            "with the range and is not an order.", fits, d))
     seeds = seed_summary(frame)
     if len(seeds):
         d = pd.DataFrame({
@@ -776,8 +788,9 @@ def _data_uri(path: Path) -> str:
 # Writing
 # ------------------------------------------------------------------------------------------------
 def _rules_text(cfg: ReportConfig) -> list[str]:
+    eig = (f" (eigenvalue problems: `{cfg.eigen_metric}`)" if cfg.eigen_metric else "")
     return [
-        f"Error: {_metric_name(cfg)} (`{cfg.metric}`), measured by the harness on each problem's shared "
+        f"Error: {_metric_name(cfg)} (`{cfg.metric}`){eig}, measured by the harness on each problem's shared "
         "evaluation set. Time: the method's own time in seconds, setup + solve for classical methods and "
         "setup + training (+ inference) for learned methods; harness evaluation excluded.",
         "Time-to-tolerance of a run: the time of its first measured state (training checkpoint or final "

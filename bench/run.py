@@ -9,11 +9,13 @@ from __future__ import annotations
 
 import dataclasses
 import errno
+import faulthandler
 import os
 import pickle
 import select
 import signal
 import sys
+import tempfile
 import time
 import traceback
 from datetime import datetime, timezone
@@ -294,7 +296,8 @@ def _in_child(prep: Prepared, threads: int) -> dict:
     except Diverged as exc:
         out.update(status="diverged", reason=str(exc), step=exc.step)
     except MemoryError:
-        out.update(status="out_of_memory", reason="MemoryError inside the case")
+        out.update(status="out_of_memory", reason=f"MemoryError inside the case (allocations are refused "
+                   f"well above budget.memory_limit_mb = {prep.budget.memory_limit_mb:g} MiB)")
     except BadSolution as exc:
         out.update(status="failed", reason=f"bad solution: {exc}")
     except Exception as exc:  # noqa: BLE001  (a failing case is a record, not a crash)
@@ -332,8 +335,11 @@ def _jsonable(info: dict) -> dict:
 def _fork_and_wait(prep: Prepared, threads: int) -> dict:
     """Fork, run the case in the child, enforce time and memory limits, collect the result."""
     rfd, wfd = os.pipe()
-    limit_s = prep.budget.time_limit
     limit_mb = prep.budget.memory_limit_mb
+    # The limit is on what the case adds: the forked child starts sharing the harness's pages
+    # (numpy, scipy, torch when preloaded: hundreds of MiB), which are not the case's memory.
+    base_mb, _ = _rss_mb(os.getpid())
+    crash_log = tempfile.TemporaryFile()  # where a dying child's Python stack goes (faulthandler)
     sys.stdout.flush()
     sys.stderr.flush()
     pid = os.fork()
@@ -342,6 +348,7 @@ def _fork_and_wait(prep: Prepared, threads: int) -> dict:
         try:
             os.close(rfd)
             _set_pdeathsig()
+            faulthandler.enable(file=crash_log, all_threads=False)
             try:
                 import resource
 
@@ -365,6 +372,33 @@ def _fork_and_wait(prep: Prepared, threads: int) -> dict:
         finally:
             os._exit(code)
     os.close(wfd)
+    try:
+        return _wait_for_child(prep, pid, rfd, base_mb, crash_log)
+    finally:
+        crash_log.close()
+
+
+def _crash_site(crash_log) -> str:
+    """`` at a.py:5 in f, b.py:9 in g``: the two innermost frames faulthandler wrote, or ''."""
+    try:
+        crash_log.seek(0)
+        text = crash_log.read(65536).decode("utf-8", "replace")
+    except OSError:
+        return ""
+    frames = []
+    for line in text.splitlines():
+        line = line.strip()
+        if line.startswith('File "') and '", line ' in line and len(frames) < 2:
+            fname, rest = line[6:].split('", line ', 1)
+            lineno, _, func = rest.partition(" in ")
+            frames.append(f"{Path(fname).name}:{lineno.strip()}" + (f" in {func.strip()}" if func else ""))
+    return " at " + ", called from ".join(frames) if frames else ""
+
+
+def _wait_for_child(prep: Prepared, pid: int, rfd: int, base_mb: float, crash_log) -> dict:
+    """The parent's side: poll the pipe, the clock and the child's memory; the child's result."""
+    limit_s = prep.budget.time_limit
+    limit_mb = prep.budget.memory_limit_mb
     t0 = time.perf_counter()
     chunks: list[bytes] = []
     status = None
@@ -386,9 +420,10 @@ def _fork_and_wait(prep: Prepared, threads: int) -> dict:
                 continue
             rss, _ = _rss_mb(pid)
             peak_seen = max(peak_seen, rss)
-            if rss > limit_mb:
+            if rss - base_mb > limit_mb:
                 status = "out_of_memory"
-                reason = f"resident memory {rss:.0f} MiB exceeded the limit of {limit_mb:g} MiB (killed)"
+                reason = (f"resident memory grew by {rss - base_mb:.0f} MiB (to {rss:.0f} MiB), above "
+                          f"budget.memory_limit_mb = {limit_mb:g} MiB (killed)")
                 break
             done, st = os.waitpid(pid, os.WNOHANG)
             if done:
@@ -430,14 +465,26 @@ def _fork_and_wait(prep: Prepared, threads: int) -> dict:
     if os.WIFSIGNALED(exit_status):
         sig = os.WTERMSIG(exit_status)
         name = signal.Signals(sig).name if sig in signal.Signals._value2member_map_ else str(sig)
-        if sig == signal.SIGKILL and peak_seen > 0.8 * limit_mb:
+        if sig == signal.SIGKILL and peak_seen - base_mb > 0.8 * limit_mb:
             return {"status": "out_of_memory", "reason": f"killed by {name} near the memory limit",
                     "wall": wall, "peak_rss_mb": peak_seen}
-        return {"status": "crashed", "reason": f"case process killed by signal {name}", "wall": wall,
-                "peak_rss_mb": peak_seen}
+        return {"status": "crashed", "reason": f"case process killed by signal {name}{_crash_site(crash_log)}",
+                "wall": wall, "peak_rss_mb": peak_seen}
     code = os.WEXITSTATUS(exit_status) if os.WIFEXITED(exit_status) else -1
     return {"status": "crashed", "reason": f"case process exited with code {code} without a result",
             "wall": wall, "peak_rss_mb": peak_seen}
+
+
+def _ensure_reference(prep: Prepared) -> str | None:
+    """Let the problem compute or load its reference (results_dir = the records' folder's parent)."""
+    ensure = getattr(prep.problem, "ensure_reference", None)
+    if ensure is None:
+        return None
+    try:
+        ensure(prep.path.parent.parent)
+    except Exception as exc:  # noqa: BLE001  (a failing reference is a record, not a crash)
+        return f"computing the reference failed: {type(exc).__name__}: {exc}"[:2000]
+    return None
 
 
 def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tuple[dict, bool]:
@@ -452,6 +499,9 @@ def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tu
     threads, cores = effective_threads(prep.case.threads, cores)
     from bench import calibration
 
+    # computed references (eigen problems without closed form) are built here, in the parent and
+    # before the clock starts, and cached under results_dir/cache: never on the solver's time
+    ref_error = _ensure_reference(prep) if prep.unsupported is None else None
     # machine speed, in the same process and minutes of the case: `lapbench check` divides by it
     cal = {"calibration_s": calibration.calibration_seconds(), "calibration_kernel": calibration.KERNEL}
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
@@ -459,6 +509,8 @@ def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tu
     busy0, own0 = _cpu_times()
     if prep.unsupported is not None:
         child = {"status": "unsupported", "reason": prep.unsupported, "wall": 0.0}
+    elif ref_error is not None:
+        child = {"status": "failed", "reason": ref_error, "wall": 0.0}
     else:
         type(prep.solver).preload()
         child = _fork_and_wait(prep, threads)

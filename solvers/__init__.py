@@ -1,7 +1,10 @@
 """Solvers: one module per method family, all registered in SOLVERS (key = conf/solver/<key>.yaml)."""
 from solvers.base import Budget, Diverged, RunContext, Solution, Solver, Tags, Unsupported
 from solvers.fast_poisson import FST5, FST9
+from solvers.disk_spectral import DiskChebyshev
 from solvers.fd import FD5, FD9
+from solvers.fem import FEMP1, FEMP2
+from solvers.pinn import PINNFourier, PINNHard, PINNRar, PINNRitz, PINNSoft
 from solvers.spectral import Chebyshev
 
 # The one registry: name -> class. Later families add their entries here.
@@ -11,6 +14,14 @@ SOLVERS: dict[str, type[Solver]] = {
     "fst5": FST5,
     "fst9": FST9,
     "cheb": Chebyshev,
+    "disk_cheb": DiskChebyshev,
+    "fem_p1": FEMP1,
+    "fem_p2": FEMP2,
+    "pinn_soft": PINNSoft,
+    "pinn_hard": PINNHard,
+    "pinn_ritz": PINNRitz,
+    "pinn_fourier": PINNFourier,
+    "pinn_rar": PINNRar,
 }
 
 __all__ = ["SOLVERS", "Solver", "Solution", "Budget", "RunContext", "Tags", "Unsupported",

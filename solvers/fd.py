@@ -36,7 +36,7 @@ class _SparseFD(Solver):
     family = "fd"
     compact = False
     Params = FDParams
-    tags = Tags(kinds=frozenset({"laplace", "poisson"}), domains=frozenset({"rectangle"}))
+    tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=frozenset({"rectangle"}))
 
     def memory_estimate_mb(self) -> float:
         """Rough peak memory: a sparse factorisation of the 2-D Laplacian has O(N log N) fill."""
@@ -45,6 +45,12 @@ class _SparseFD(Solver):
         return N * per / 2 ** 20
 
     def _solve(self, problem, budget, ctx):
+        if problem.kind == "eigen":  # shift-invert Lanczos on the same matrix (solvers/eigen.py)
+            from solvers.eigen import grid_eigen
+
+            with ctx.phase("solve"):
+                return grid_eigen(TensorGrid(problem.domain, self.params.n), self.compact,
+                                  problem.n_eigs, {"h": max(problem.domain.lengths) / self.params.n})
         with ctx.phase("setup"):
             grid = TensorGrid(problem.domain, self.params.n)
             A = interior_matrix(grid, self.compact)
@@ -73,6 +79,16 @@ class FD5(_SparseFD):
     name = "fd5"
     description = "5-point finite differences, sparse direct or AMG-CG solve (order 2)"
     reference = "LeVeque, Finite Difference Methods for ODEs and PDEs, SIAM 2007, ch. 3"
+    # Non-rectangular domains: masked grid with Shortley-Weller arms (solvers/masked.py).
+    tags = Tags(kinds=frozenset({"laplace", "poisson"}),
+                domains=frozenset({"rectangle", "disk", "annulus", "polygon"}))
+
+    def _solve(self, problem, budget, ctx):
+        if problem.domain.kind != "rectangle":
+            from solvers.masked import masked_fd5
+
+            return masked_fd5(problem, self.params, ctx)
+        return super()._solve(problem, budget, ctx)
 
 
 class FD9(_SparseFD):

@@ -75,7 +75,7 @@ class Chebyshev(Solver):
     description = "Chebyshev collocation, matrix diagonalisation, barycentric interpolant"
     reference = "Trefethen, Spectral Methods in MATLAB, SIAM 2000; Haidvogel & Zang, JCP 30 (1979)"
     Params = ChebParams
-    tags = Tags(kinds=frozenset({"laplace", "poisson"}), domains=frozenset({"rectangle"}))
+    tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=frozenset({"rectangle"}))
 
     def memory_estimate_mb(self) -> float:
         return 10 * 8 * (self.params.n + 1) ** 2 / 2 ** 20
@@ -83,6 +83,11 @@ class Chebyshev(Solver):
     def _solve(self, problem, budget, ctx):
         n = self.params.n
         d = problem.domain
+        if problem.kind == "eigen":  # Kronecker-sum spectrum with the drift filter (solvers/eigen.py)
+            from solvers.eigen import cheb_eigen
+
+            with ctx.phase("solve"):
+                return cheb_eigen(d, n, problem.n_eigs, {"h": float(max(d.lengths) / n)})
         with ctx.phase("setup"):
             D, t = cheb(n)
             D2 = D @ D

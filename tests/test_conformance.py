@@ -17,6 +17,16 @@ TEST_BUDGETS = {
     "fst5": {"n": 16},
     "fst9": {"n": 16},
     "cheb": {"n": 12},    # degree 12 resolves sin(pi x) sin(pi y) to ~1e-9
+    "fem_p1": {"level": 3},           # 8 x 4^3 elements at most: order-2 accuracy, milliseconds
+    "fem_p2": {"level": 2},           # P2 on 4^2 times the coarse mesh: ~1e-3 on smooth data
+    "disk_cheb": {"n": 10, "m": 20},  # ~1e-4 on disk_harmonic (rho = 2) in milliseconds
+    # PINNs: 2 x 12 tanh net, 128 points, 100 Adam + 30 L-BFGS steps: about a second per solve,
+    # rel. L2 on sine well below the 0.5 sanity bound (measured: 1e-2 soft, 1e-3 hard)
+    **{name: {"width": 12, "depth": 2, "n_interior": 128, "n_boundary": 64, "adam_steps": 100,
+              "lbfgs_steps": 30, "rar_candidates": 512, "rar_every": 50, "rar_add": 16,
+              "fourier_features": 8 if name == "pinn_fourier" else 0,
+              "resample_every": 50 if name == "pinn_ritz" else 0}
+       for name in ("pinn_soft", "pinn_hard", "pinn_ritz", "pinn_fourier", "pinn_rar")},
 }
 
 # (solver, check) -> reason. Empty: every solver passes every applicable check.

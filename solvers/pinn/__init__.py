@@ -1,0 +1,5 @@
+"""Physics-informed neural networks on the CPU (torch is imported only when a PINN runs)."""
+from solvers.pinn.solver import (PINN, PRESETS, PINNFourier, PINNHard, PINNParams, PINNRar, PINNRitz,
+                                 PINNSoft)
+
+__all__ = ["PINN", "PINNParams", "PRESETS", "PINNSoft", "PINNHard", "PINNRitz", "PINNFourier", "PINNRar"]

@@ -23,10 +23,10 @@ import math
 import torch
 from torch import nn
 
+from solvers.pinn.solver import ACTIVATIONS, LAPLACIAN_METHODS
+
 __all__ = ["Network", "ACTIVATIONS", "LAPLACIAN_METHODS", "activation_derivatives", "torch_dtype"]
 
-ACTIVATIONS = ("tanh", "sin", "silu")
-LAPLACIAN_METHODS = ("forward", "autograd", "func")
 
 
 def torch_dtype(precision: str) -> torch.dtype:

@@ -1,0 +1,405 @@
+"""Report figures (matplotlib, Agg backend; seaborn styling), written as PNG and/or SVG.
+
+Per problem: error against method time with each family's Pareto front; error against degrees
+of freedom (classical) or trainable parameters (learned) with the fitted convergence slopes;
+learned methods' training curves with the time at which the best classical run reached the same
+error. For chosen cases: the pointwise error field. Colours come from seaborn's colour-blind-safe
+palette (one colour per method family, one marker per method), and the diverging field map is
+red-blue, which stays readable under the common colour-vision deficiencies.
+"""
+from __future__ import annotations
+
+import dataclasses
+import math
+import sys
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["Figure", "make_figures", "family_colours"]
+
+MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "h")
+FAMILY_ORDER = ("fd", "spectral", "fem", "pinn")    # fixed colours across reports
+TIME_LABEL = "method time (s): setup + solve, or setup + training"
+LEARNED_TIME_LABEL = "method time (s): setup + training"
+FIELD_CMAP = "RdBu_r"
+
+
+@dataclasses.dataclass
+class Figure:
+    """One written figure: its files by format, and the text that goes with it."""
+
+    key: str
+    title: str
+    caption: str
+    paths: dict
+    problem: str | None = None
+
+
+def family_colours(families) -> dict:
+    """Family -> colour from the colour-blind palette, stable across reports."""
+    import seaborn as sns
+
+    pal = sns.color_palette("colorblind", 10)
+    # blue, green, reddish purple, vermilion for the known families (orange is kept away from
+    # vermilion, the pair hardest to tell apart); the rest of the palette after them
+    known = {"fd": pal[0], "spectral": pal[2], "fem": pal[4], "pinn": pal[3]}
+    extra = iter([pal[i] for i in (1, 5, 9, 8, 6, 7)])
+    out = {}
+    for f in sorted(set(families), key=lambda f: (f not in FAMILY_ORDER, str(f))):
+        out[f] = known.get(f) or next(extra, pal[7])
+    return out
+
+
+def _markers(frame) -> dict:
+    """Solver -> marker, distinct within each family."""
+    out = {}
+    for _, g in frame.groupby("family", sort=True):
+        for i, s in enumerate(sorted(g["solver"].unique())):
+            out[s] = MARKERS[i % len(MARKERS)]
+    return out
+
+
+def _style(cfg):
+    import matplotlib
+    import seaborn as sns
+
+    matplotlib.use("Agg")
+    rc = {**sns.axes_style("ticks"), **sns.plotting_context("paper", font_scale=1.25 * cfg.figures.font_scale)}
+    rc.update({"axes.grid": True, "grid.color": "#e3e3e3", "grid.linewidth": 0.6, "svg.hashsalt": "lapbench",
+               "legend.frameon": False, "figure.dpi": 100, "savefig.bbox": "tight"})
+    return rc
+
+
+def _save(fig, folder: Path, key: str, cfg) -> dict:
+    import matplotlib.pyplot as plt
+
+    paths = {}
+    for fmt in cfg.figures.formats:
+        p = folder / f"{key}.{fmt}"
+        meta = {"Date": None} if fmt == "svg" else {}
+        fig.savefig(p, dpi=cfg.figures.dpi, format=fmt, metadata=meta)
+        paths[fmt] = p
+    plt.close(fig)
+    return paths
+
+
+def _error_label(cfg, frame=None, pid=None) -> str:
+    """Axis label of the error, with its unit; eigenvalue problems use the eigen metric."""
+    from bench.report import _metric_name
+
+    if frame is not None and pid is not None and cfg.eigen_metric:
+        kinds = set(frame.loc[frame["problem_id"] == pid, "kind"])
+        if kinds == {"eigen"}:
+            return f"eigenvalue error `{cfg.eigen_metric}` (dimensionless)"
+    if cfg.metric.startswith("rel"):
+        return f"{_metric_name(cfg)} (dimensionless)"
+    return f"{_metric_name(cfg)} (units of u)"
+
+
+def _legend(fig, ax):
+    """One entry per label, below the axes (a legend beside them would squeeze the plot)."""
+    handles, labels = ax.get_legend_handles_labels()
+    if handles:
+        seen = {}
+        for h, lab in zip(handles, labels):
+            seen.setdefault(lab, h)
+        ncols = 2 if max(len(lab) for lab in seen) > 28 else 3
+        fig.legend(seen.values(), seen.keys(), loc="outside lower center", ncols=ncols, fontsize="small")
+
+
+def _staircase(ax, front, **kw):
+    """A Pareto front as the best error reachable within a time: steps at its points, held to the
+    right edge of the axes (call after the limits are final)."""
+    if len(front) == 0:
+        return
+    x0, x1 = ax.get_xlim()
+    t = np.append(front["time"].to_numpy(float), x1)
+    e = np.append(front["error"].to_numpy(float), front["error"].iloc[-1])
+    ax.plot(t, e, drawstyle="steps-post", **kw)
+    ax.set_xlim(x0, x1)
+
+
+def _loglog(ax):
+    """Log axes labelled at whole decades only; a range with fewer than two decade ticks is widened
+    to whole decades, so that every axis carries at least two labels and minor labels never crowd."""
+    from matplotlib.ticker import LogLocator, NullFormatter
+
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    for axis, get, set_ in ((ax.xaxis, ax.get_xlim, ax.set_xlim), (ax.yaxis, ax.get_ylim, ax.set_ylim)):
+        lo, hi = get()
+        if lo > 0 and hi > lo:
+            a, b = math.log10(lo), math.log10(hi)
+            if math.floor(b) - math.ceil(a) + 1 < 2:
+                set_(10.0 ** math.floor(a), 10.0 ** max(math.ceil(b), math.floor(a) + 1))
+        axis.set_major_locator(LogLocator(base=10, numticks=12))
+        axis.set_minor_locator(LogLocator(base=10, subs=np.arange(2, 10) * 0.1, numticks=12))
+        axis.set_minor_formatter(NullFormatter())
+
+
+# ------------------------------------------------------------------------------------------------
+def fig_pareto(pid, frame, pts, cfg, folder) -> Figure | None:
+    """Error against method time, every run's final point (and training checkpoints, faint), each
+    family's Pareto front as a staircase."""
+    import matplotlib.pyplot as plt
+
+    from bench.report import FAIL_STATUSES, pareto_front
+
+    g = frame[frame["problem_id"] == pid]
+    p = pts[pts["problem_id"] == pid]
+    if p.empty:
+        return None
+    colours, markers = family_colours(frame["family"]), _markers(frame)
+    fig, ax = plt.subplots(figsize=(cfg.figures.width, cfg.figures.height), layout="constrained")
+    for tol in cfg.tolerances:
+        ax.axhline(tol, color="#9a9a9a", lw=0.8, ls=":", zorder=0)
+    for (fam, solver), q in p.groupby(["family", "solver"], sort=True):
+        fin = q[q["final"]]
+        ax.scatter(fin["time"], fin["error"], color=colours[fam], marker=markers[solver], s=28,
+                   edgecolor="white", linewidth=0.4, label=solver, zorder=3)
+        ck = q[~q["final"]]
+        if len(ck):
+            ax.scatter(ck["time"], ck["error"], color=colours[fam], marker=".", s=6, alpha=0.35,
+                       linewidth=0, zorder=2)
+    _loglog(ax)
+    for fam, q in p.groupby("family", sort=True):
+        _staircase(ax, pareto_front(q), color=colours[fam], lw=1.6, alpha=0.9, label=f"{fam} Pareto front",
+                   zorder=4)
+    ax.set_xlabel(TIME_LABEL)
+    ax.set_ylabel(_error_label(cfg, frame, pid))
+    ax.set_title(pid)
+    failed = g[g["status"].isin(FAIL_STATUSES)]
+    if len(failed):
+        counts = failed["status"].value_counts()
+        ax.text(0.01, 0.01, "not shown: " + ", ".join(f"{n} {s}" for s, n in counts.items()),
+                transform=ax.transAxes, fontsize="small", color="#444", va="bottom")
+    _legend(fig, ax)
+    key = f"error_vs_time__{_slug(pid)}"
+    return Figure(key, f"Error against runtime: {pid}",
+                  "Each marker is one run's final solution (faint dots: training checkpoints of learned "
+                  "runs); staircases are each family's Pareto front over individual runs (no other run is "
+                  "both faster and more accurate). Dotted lines: the report's tolerances.",
+                  _save(fig, folder, key, cfg), pid)
+
+
+def fig_order(pid, frame, fits, cfg, folder) -> Figure | None:
+    """Error against dofs (classical) or parameters (learned), with the fitted slopes."""
+    import matplotlib.pyplot as plt
+
+    from bench.report import _finite, _is_learned
+
+    g = frame[(frame["problem_id"] == pid) & (frame["status"] == "ok") & frame["error"].map(_finite)]
+    if g.empty:
+        return None
+    size = np.where(g["family"].map(_is_learned), g["n_params"].astype(float), g["dofs"].astype(float))
+    g = g.assign(size=size)
+    g = g[np.isfinite(g["size"]) & (g["size"] > 0)]
+    if g.empty:
+        return None
+    colours, markers = family_colours(frame["family"]), _markers(frame)
+    fig, ax = plt.subplots(figsize=(cfg.figures.width, cfg.figures.height), layout="constrained")
+    for (fam, solver), q in g.groupby(["family", "solver"], sort=True):
+        ax.scatter(q["size"], q["error"], color=colours[fam], marker=markers[solver], s=28, edgecolor="white",
+                   linewidth=0.4, label=solver, zorder=3)
+    f = fits[(fits["problem_id"] == pid) & fits["slope_dofs"].map(_finite)]
+    styles = ["-", "--", "-.", ":"]
+    for k, (_, r) in enumerate(f.iterrows()):
+        x = np.array([r["dofs_min"], r["dofs_max"]])
+        y = np.exp(r["intercept_dofs"]) * x ** r["slope_dofs"]
+        name = r["solver"] + (f" ({r['variant']})" if r["variant"] else "")
+        ax.plot(x, y, color=colours.get(r["family"], "k"), ls=styles[k % len(styles)], lw=1.3, zorder=4,
+                label=f"{name}: slope {r['slope_dofs']:.2f}")
+    _loglog(ax)
+    ax.set_xlabel("degrees of freedom (classical) or trainable parameters (learned), count")
+    ax.set_ylabel(_error_label(cfg, frame, pid))
+    ax.set_title(pid)
+    _legend(fig, ax)
+    key = f"error_vs_size__{_slug(pid)}"
+    return Figure(key, f"Error against problem size: {pid}",
+                  "Final error of every successful run against its degrees of freedom (classical) or "
+                  "trainable parameters (learned); lines are least-squares fits of log error against log "
+                  "dofs over the range used for the convergence-order table (a slope of -p/2 is order p "
+                  "in h in two dimensions).", _save(fig, folder, key, cfg), pid)
+
+
+def fig_training(pid, frame, pts, recs, cfg, folder) -> Figure | None:
+    """Learned runs' error against training time; the best classical runs' staircase; for each run
+    the time at which a classical run reached the same error."""
+    import matplotlib.pyplot as plt
+    import seaborn as sns
+
+    from bench.report import _is_learned, metric_key, pareto_front
+
+    g = frame[(frame["problem_id"] == pid) & frame["family"].map(_is_learned)]
+    curves = []
+    for i in g.index:
+        key = metric_key(recs[i], cfg.metric, cfg.eigen_metric)
+        h = [(c.get("time"), c.get(key)) for c in (recs[i].get("history") or [])]
+        h = [(t, e) for t, e in h if t is not None and e is not None and np.isfinite(t) and np.isfinite(e) and e > 0]
+        if h:
+            curves.append((i, sorted(h)))
+    if not curves:
+        return None
+    p = pts[pts["problem_id"] == pid]
+    classical = p[~p["family"].map(_is_learned)]
+    front = pareto_front(classical)
+    configs = sorted({(frame.at[i, "solver"], frame.at[i, "label"]) for i, _ in curves})
+    pal = sns.color_palette("colorblind", 10)
+    order = [3, 0, 2, 4, 1, 5, 6, 8, 9, 7]   # vermilion first: the learned family's colour
+    colour = {c: pal[order[k % len(order)]] for k, c in enumerate(configs)}
+    fig, ax = plt.subplots(figsize=(cfg.figures.width, cfg.figures.height), layout="constrained")
+    for tol in cfg.tolerances:
+        ax.axhline(tol, color="#9a9a9a", lw=0.8, ls=":", zorder=0)
+    marked = False
+    for i, h in curves:
+        t, e = (np.array(v) for v in zip(*h))
+        c = colour[(frame.at[i, "solver"], frame.at[i, "label"])]
+        ok = frame.at[i, "status"] == "ok"
+        ax.plot(t, e, color=c, lw=1.1, alpha=0.85, ls="-" if ok else "--",
+                label=f"{frame.at[i, 'solver']} ({frame.at[i, 'label']})")
+        if not ok:
+            ax.plot(t[-1:], e[-1:], marker="x", color=c, ms=7, ls="none")
+            continue
+        k = int(np.argmin(e))
+        hit = classical.loc[classical["error"] <= e[k], "time"] if len(classical) else []
+        if len(hit):
+            tc = float(np.min(hit))
+            ax.plot([tc, t[k]], [e[k], e[k]], color=c, lw=0.8, ls=":", zorder=3)
+            ax.plot([tc], [e[k]], marker="v", color="black", ms=6, ls="none", zorder=5,
+                    label=None if marked else "classical time to the run's best error")
+            marked = True
+    if len(front):   # the staircase from its first point on; its steps below 1e-3 x the runs' least error are cut
+        ax.plot(front["time"].iloc[:1], front["error"].iloc[:1], ls="none")
+    lo = min(float(np.min([e for _, e in h])) for _, h in curves)
+    _loglog(ax)
+    y0, y1 = ax.get_ylim()
+    ax.set_ylim(max(y0, lo * 1e-3), y1)
+    _loglog(ax)
+    _staircase(ax, front, color="black", lw=1.6, label="best classical (Pareto front)", zorder=4)
+    ax.set_ylim(*ax.get_ylim())
+    ax.set_xlabel(LEARNED_TIME_LABEL)
+    ax.set_ylabel(_error_label(cfg, frame, pid))
+    ax.set_title(pid)
+    _legend(fig, ax)
+    key = f"training__{_slug(pid)}"
+    return Figure(key, f"Training curves: {pid}",
+                  "Error of each learned run at its training checkpoints against method time (one line per "
+                  "seed; dashed with a cross: the run ended diverged or failed). Black staircase: the best "
+                  "classical runs (cut three decades below the learned runs' least error); black triangles: "
+                  "the time at which a classical run first reached each learned run's best error, joined to "
+                  "the learned run by a dotted line.",
+                  _save(fig, folder, key, cfg), pid)
+
+
+def _field_records(recs, frame, cfg):
+    o = cfg.field
+    chosen = []
+    for i in frame.index:
+        f = recs[i].get("field")
+        if not isinstance(f, dict) or not f.get("error"):
+            continue
+        r = recs[i]
+        if o.problem is not None and o.problem not in (r["problem"].get("label"), r["problem"].get("id")):
+            continue
+        if o.solver is not None and r["solver"].get("name") != o.solver:
+            continue
+        if o.resolution is not None and r["solver"].get("resolution_label") != o.resolution:
+            continue
+        if o.seed is not None and r.get("seed") != o.seed:
+            continue
+        chosen.append(i)
+    # one panel per problem and method: its most accurate run (failed runs carry no field)
+    best = {}
+    for i in chosen:
+        key = (frame.at[i, "problem_id"], frame.at[i, "solver"])
+        e = frame.at[i, "error"]
+        e = e if np.isfinite(e) else math.inf
+        if key not in best or e < best[key][0]:
+            best[key] = (e, i)
+    return [best[k][1] for k in sorted(best)][: o.max_panels]
+
+
+def fig_field(recs, frame, cfg, folder) -> Figure | None:
+    """Pointwise error u_h - u on the 41 x 41 grid the harness stored, one panel per chosen run."""
+    import matplotlib.pyplot as plt
+    from matplotlib.colors import TwoSlopeNorm
+
+    chosen = _field_records(recs, frame, cfg)
+    if not chosen:
+        return None
+    n = len(chosen)
+    ncols = min(n, 2)
+    nrows = math.ceil(n / ncols)
+    w = cfg.figures.width
+    fig, axes = plt.subplots(nrows, ncols, figsize=(w, w / ncols * 0.9 * nrows), layout="constrained",
+                             squeeze=False)
+    for ax in axes.ravel()[n:]:
+        ax.set_visible(False)
+    for ax, i in zip(axes.ravel(), chosen):
+        f = recs[i]["field"]
+        x, y = np.asarray(f["x"], float), np.asarray(f["y"], float)
+        E = np.array([np.nan if v is None else v for v in f["error"]], float).reshape(len(x), len(y))
+        lim = float(np.nanmax(np.abs(E))) if np.isfinite(E).any() else 1.0
+        lim = lim if lim > 0 else 1.0
+        mesh = ax.pcolormesh(x, y, np.ma.masked_invalid(E.T), cmap=FIELD_CMAP, shading="nearest",
+                             norm=TwoSlopeNorm(0.0, -lim, lim))
+        ax.set_aspect("equal")
+        ax.set_xlabel("x (dimensionless)")
+        ax.set_ylabel("y (dimensionless)")
+        r = recs[i]
+        err = frame.at[i, "error"]
+        ax.set_title(f"{r['solver']['name']} {r['solver'].get('resolution_label', '')}\n"
+                     f"{r['problem'].get('id')}" + (f", {cfg.metric} {err:.2e}" if np.isfinite(err) else ""),
+                     fontsize="small")
+        cb = fig.colorbar(mesh, ax=ax, shrink=0.85)
+        cb.set_label("error $u_h - u$ (units of u)")
+        cb.formatter.set_powerlimits((-2, 3))
+    problems = {recs[i]["problem"].get("id") for i in chosen}
+    pid = next(iter(problems)) if len(problems) == 1 else None
+    key = "error_field" + (f"__{_slug(pid)}" if pid else "")
+    return Figure(key, "Pointwise error field" + (f": {pid}" if pid else ""),
+                  "Error of the computed solution minus the exact one on a 41 x 41 grid over the domain's "
+                  "bounding box (white: outside the domain or excluded), diverging colour map centred at "
+                  "zero, one colour scale per panel. Per problem and method the most accurate run among those "
+                  "recorded with save_field=true that match the report's `field` options.", _save(fig, folder, key, cfg), pid)
+
+
+def _slug(text):
+    from bench.report import _slug as s
+
+    return s(text)
+
+
+def make_figures(recs, frame, cfg, folder: Path) -> list[Figure]:
+    """Every requested figure for the records; progress on stderr when it is a terminal."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    from tqdm import tqdm
+
+    from bench.report import order_fits, run_points
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    kinds = cfg.figures.kinds
+    pts = run_points(recs, frame, cfg.metric, cfg.eigen_metric)
+    fits = order_fits(frame, cfg.fit.floor, cfg.fit.points) if "order" in kinds else None
+    jobs = []
+    for pid in sorted(frame["problem_id"].unique()):
+        if "pareto" in kinds:
+            jobs.append(lambda pid=pid: fig_pareto(pid, frame, pts, cfg, folder))
+        if "order" in kinds:
+            jobs.append(lambda pid=pid: fig_order(pid, frame, fits, cfg, folder))
+        if "training" in kinds:
+            jobs.append(lambda pid=pid: fig_training(pid, frame, pts, recs, cfg, folder))
+    if "field" in kinds:
+        jobs.append(lambda: fig_field(recs, frame, cfg, folder))
+    out = []
+    with plt.rc_context(_style(cfg)):
+        for job in tqdm(jobs, desc="figures", unit="fig", file=sys.stderr, disable=not sys.stderr.isatty()):
+            f = job()
+            if f is not None:
+                out.append(f)
+    return out

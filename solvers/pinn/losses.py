@@ -1,0 +1,90 @@
+"""Loss functions: the strong-form residual and the Deep Ritz energy, soft or hard boundaries.
+
+Strong form (Raissi, Perdikaris & Karniadakis, J. Comput. Phys. 378, 2019):
+    L = mean_i (Lap u(x_i) + f(x_i))^2  [+ w mean_j (u(y_j) - g(y_j))^2  for soft boundaries].
+Deep Ritz (E & Yu, Commun. Math. Stat. 6, 2018): the Dirichlet energy by Monte Carlo,
+    E = |Omega| mean_i (|grad u(x_i)|^2 / 2 - f(x_i) u(x_i))  [+ w mean_j (u(y_j) - g(y_j))^2],
+whose minimiser over functions with u = g on the boundary solves -Lap u = f.
+Hard boundaries (Sukumar & Srivastava, CMAME 389, 2022): u = g_ext + phi N with phi = 0 on the
+boundary, so u = g there whatever the network N does; product rule
+    grad u = grad g_ext + N grad phi + phi grad N,
+    Lap u  = Lap g_ext + N Lap phi + 2 grad phi . grad N + phi Lap N,
+with g_ext, phi and their derivatives fixed per point (sampling.point_data).
+"""
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import torch
+
+from solvers.pinn.sampling import PointData
+from solvers.pinn.solver import BOUNDARIES, LOSSES
+
+__all__ = ["Batch", "Boundary", "Loss", "LOSSES", "BOUNDARIES"]
+
+
+
+class Batch:
+    """`PointData` as torch tensors of one dtype (built once per collocation set)."""
+
+    FIELDS = ("x", "f", "g", "grad_g", "lap_g", "phi", "grad_phi", "lap_phi")
+
+    def __init__(self, data: PointData, dtype: torch.dtype):
+        self.data = data
+        for name in self.FIELDS:
+            v = getattr(data, name)
+            setattr(self, name, None if v is None else torch.as_tensor(np.ascontiguousarray(v), dtype=dtype))
+
+    def __len__(self) -> int:
+        return len(self.data)
+
+
+@dataclasses.dataclass
+class Boundary:
+    """Boundary points and data for soft boundary conditions (torch tensors)."""
+
+    x: torch.Tensor
+    g: torch.Tensor
+
+
+@dataclasses.dataclass
+class Loss:
+    """One loss configuration; call it on a batch to get ``(loss, {"loss_pde", "loss_bc"})``."""
+
+    kind: str = "residual"          # residual | ritz
+    hard: bool = False
+    bc_weight: float = 100.0
+    laplacian: str = "forward"      # forward | autograd | func (see model.Network.derivatives)
+    area: float = 1.0               # |Omega| for the Ritz energy
+
+    def solution(self, net, batch: Batch, order: int):
+        """``(u, grad u, Lap u)`` of the boundary-treated solution at the batch points."""
+        N, gN, lN = net.derivatives(batch.x, order, self.laplacian)
+        if not self.hard:
+            return N, gN, lN
+        u = batch.g + batch.phi * N
+        gu = batch.grad_g + N[:, None] * batch.grad_phi + batch.phi[:, None] * gN
+        lu = None
+        if order == 2:
+            lu = (batch.lap_g + N * batch.lap_phi + 2.0 * (batch.grad_phi * gN).sum(1)
+                  + batch.phi * lN)
+        return u, gu, lu
+
+    def residual(self, net, batch: Batch) -> torch.Tensor:
+        """Pointwise strong-form residual Lap u + f (for adaptive refinement)."""
+        with torch.enable_grad():
+            _, _, lu = self.solution(net, batch, 2)
+        return (lu + batch.f).detach()
+
+    def __call__(self, net, batch: Batch, boundary: Boundary | None):
+        if self.kind == "residual":
+            _, _, lu = self.solution(net, batch, 2)
+            pde = torch.mean((lu + batch.f) ** 2)
+        else:
+            u, gu, _ = self.solution(net, batch, 1)
+            pde = self.area * torch.mean(0.5 * (gu * gu).sum(1) - batch.f * u)
+        if self.hard or boundary is None:
+            return pde, {"loss_pde": pde, "loss_bc": None}
+        bc = torch.mean((net(boundary.x) - boundary.g) ** 2)
+        return pde + self.bc_weight * bc, {"loss_pde": pde, "loss_bc": bc}

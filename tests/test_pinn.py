@@ -1,0 +1,259 @@
+"""PINN family (solvers/pinn/): derivatives, boundary treatment, accuracy, reproducibility, budgets.
+
+Every run here uses a tiny network (2 hidden layers of 16) and a few hundred steps, so that each
+test stays within a few seconds on one core. Accuracy thresholds were measured on the
+development machine (2 cores, torch 2.13 CPU, 1 thread) over seeds 0-4 with exactly these
+settings; each threshold is about three times the worst of the five, and the test runs seed 0.
+"""
+from __future__ import annotations
+
+import dataclasses
+import math
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from bench.config import ConfigError
+from bench.metrics import solution_errors
+from bench.problems import make_problem
+from solvers import SOLVERS
+from solvers.base import Budget, RunContext
+from solvers.pinn import PRESETS
+
+torch = pytest.importorskip("torch")
+
+from solvers.pinn.model import Network  # noqa: E402  (after the torch check)
+from solvers.pinn.sampling import fd_derivatives, point_data  # noqa: E402
+
+TINY = {"width": 16, "depth": 2, "n_interior": 256, "n_boundary": 128, "adam_steps": 300,
+        "lbfgs_steps": 150}
+
+
+@pytest.fixture(scope="module", autouse=True)
+def _one_thread():
+    old = torch.get_num_threads()
+    torch.set_num_threads(1)
+    SOLVERS["pinn_hard"].preload()
+    yield
+    torch.set_num_threads(old)
+
+
+def _run(name, problem="sine", seed=0, train_time=100.0, **over):
+    prob = make_problem({"name": problem})
+    ctx = RunContext(seed=seed)
+    sol = SOLVERS[name](params={**TINY, **over}).solve(prob.public(), Budget(train_time=train_time), ctx)
+    return prob, sol, ctx
+
+
+# -- registry, configs, import cost ------------------------------------------------------------
+def test_import_does_not_load_torch():
+    """`lapbench list` must stay fast: importing the registry never imports torch."""
+    code = "import sys, solvers; assert 'torch' not in sys.modules, 'torch imported'"
+    subprocess.run([sys.executable, "-c", code], check=True)
+
+
+@pytest.mark.parametrize("name", sorted(PRESETS))
+def test_preset_config_lists_every_option(name):
+    """conf/solver/<preset>.yaml lists every option with the preset's defaults."""
+    from omegaconf import OmegaConf
+
+    from bench.cli import conf_dir
+
+    cfg = OmegaConf.to_container(OmegaConf.load(conf_dir() / "solver" / f"{name}.yaml"))
+    assert cfg.pop("name") == name
+    defaults = dataclasses.asdict(PRESETS[name].Params())
+    assert cfg == defaults
+    assert SOLVERS[name] is PRESETS[name]
+
+
+@pytest.mark.parametrize("field,value,match", [
+    ("activation", "relu", r"^`solver\.activation` must be one of tanh, sin, silu; got 'relu'"),
+    ("boundary", "weak", r"^`solver\.boundary` must be one of soft, hard"),
+    ("lr_decay", 2.0, r"^`solver\.lr_decay` must lie in \(0, 1\]"),
+    ("adam_steps", -1, r"^`solver\.adam_steps` must be a non-negative integer"),
+])
+def test_bad_options_name_the_field(field, value, match):
+    from bench.run import make_solver
+
+    with pytest.raises(ConfigError, match=match):
+        make_solver({"name": "pinn_hard", field: value})
+
+
+# -- derivatives ---------------------------------------------------------------------------------
+def _numpy_forward(net, x):
+    """The network's forward pass re-implemented in numpy float64 from its weights."""
+    act = {"tanh": np.tanh, "sin": np.sin, "silu": lambda z: z / (1 + np.exp(-z))}[net.activation]
+    a = (x - net.center.double().numpy()) * net.scale.double().numpy()
+    if net.fourier is not None:
+        z = a @ net.fourier.double().numpy().T
+        a = np.concatenate([np.cos(z), np.sin(z)], axis=1)
+    for i, lin in enumerate(net.layers):
+        a = a @ lin.weight.detach().double().numpy().T + lin.bias.detach().double().numpy()
+        if i < len(net.layers) - 1:
+            a = act(a)
+    return a[:, 0]
+
+
+@pytest.mark.parametrize("activation", ["tanh", "sin", "silu"])
+@pytest.mark.parametrize("fourier", [0, 6])
+def test_network_laplacian_matches_finite_differences(activation, fourier):
+    """All three Laplacian routes agree with 4th-order central differences of an independent
+    numpy forward pass (float64). Step h = 1e-3: truncation h^4/90 |u^(6)| and rounding
+    eps |u| / h^2 are both below 1e-8 for these networks (fourier_scale 0.5)."""
+    gen = torch.Generator().manual_seed(7)
+    net = Network((0.0, 2.0, -1.0, 0.5), 12, 3, activation, fourier, 0.5, torch.float64, gen)
+    x = np.random.default_rng(3).uniform([0.1, -0.9], [1.9, 0.4], size=(40, 2))
+    h = 1e-3
+    lap_fd = np.zeros(len(x))
+    grad_fd = np.zeros_like(x)
+    for i in range(2):
+        e = np.zeros(2)
+        e[i] = h
+        f = {k: _numpy_forward(net, x + k * e) for k in (-2, -1, 0, 1, 2)}
+        # 4th-order central stencils [common practice]
+        lap_fd += (-f[2] + 16 * f[1] - 30 * f[0] + 16 * f[-1] - f[-2]) / (12 * h * h)
+        grad_fd[:, i] = (-f[2] + 8 * f[1] - 8 * f[-1] + f[-2]) / (12 * h)
+    scale = max(1.0, np.abs(lap_fd).max())
+    for method in ("forward", "autograd", "func"):
+        u, g, lap = net.derivatives(torch.as_tensor(x), 2, method)
+        np.testing.assert_allclose(u.detach().numpy(), _numpy_forward(net, x), rtol=0, atol=1e-12)
+        np.testing.assert_allclose(g.detach().numpy(), grad_fd, rtol=0, atol=1e-7 * scale, err_msg=method)
+        np.testing.assert_allclose(lap.detach().numpy(), lap_fd, rtol=0, atol=1e-6 * scale, err_msg=method)
+
+
+def test_boundary_function_derivatives_closed_form():
+    """FD derivatives of phi on the unit square, also with one-sided stencils at the edges:
+    phi = 16 x(1-x) y(1-y) (bench.domains.Rectangle.phi), grad and Laplacian in closed form,
+    Lap phi = -32 (x(1-x) + y(1-y)). Quadratic in each variable, so the second-order formulas
+    are exact up to rounding (eps / h^2 ~ 1e-8)."""
+    prob = make_problem({"name": "sine"})
+    x = np.array([[0.3, 0.6], [1e-6, 0.5], [0.5, 1 - 1e-6], [0.99999, 2e-5], [0.5, 0.5]])
+    phi, grad, lap = fd_derivatives(prob.domain.phi, x, prob.domain)
+    X, Y = x[:, 0], x[:, 1]
+    np.testing.assert_allclose(phi, 16 * X * (1 - X) * Y * (1 - Y), atol=1e-15)
+    np.testing.assert_allclose(grad[:, 0], 16 * (1 - 2 * X) * Y * (1 - Y), atol=1e-7)
+    np.testing.assert_allclose(grad[:, 1], 16 * (1 - 2 * Y) * X * (1 - X), atol=1e-7)
+    np.testing.assert_allclose(lap, -32 * (X * (1 - X) + Y * (1 - Y)), atol=1e-5)
+
+
+def test_boundary_extension_laplacian_on_the_disk():
+    """On the unit disk the extension of harmonic data is harmonic (Poisson integral) up to the
+    correction term, which vanishes for trigonometric-polynomial data: g = x^2 - y^2 = Re z^2
+    has Lap g_ext = 0 and phi = 1 - r^2 has Lap phi = -4 (closed forms)."""
+    prob = make_problem({"name": "disk_harmonic"}).public()
+    g = lambda p: p[:, 0] ** 2 - p[:, 1] ** 2  # noqa: E731
+    prob = dataclasses.replace(prob, g=g)
+    x = prob.domain.sample_interior(200, np.random.default_rng(0))
+    data = point_data(prob, x, hard=True)
+    np.testing.assert_allclose(data.g, g(x), atol=1e-10)
+    np.testing.assert_allclose(data.lap_g, 0.0, atol=1e-5)
+    np.testing.assert_allclose(data.lap_phi, -4.0, atol=1e-5)
+
+
+# -- boundary treatment --------------------------------------------------------------------------
+@pytest.mark.parametrize("problem", ["harmonic", "disk_harmonic", "annulus_poisson", "lshape"])
+def test_hard_boundary_equals_data(problem):
+    """u = g_ext + phi N equals the boundary data to rounding, whatever the network does."""
+    prob = make_problem({"name": problem})
+    ctx = RunContext(seed=0)
+    sol = SOLVERS["pinn_hard"](params={**TINY, "adam_steps": 5, "lbfgs_steps": 0}).solve(
+        prob.public(), Budget(train_time=60), ctx)
+    pts, _ = prob.domain.sample_boundary(300, np.random.default_rng(1))
+    exact = prob.g(pts)
+    np.testing.assert_allclose(sol.evaluate(pts), exact, rtol=0, atol=1e-12 * max(1.0, np.abs(exact).max()))
+
+
+# -- accuracy on the smooth problem u = sin(pi x) sin(pi y) (closed form) ------------------------
+@pytest.mark.parametrize("name,threshold", [
+    # measured rel_l2, seeds 0-4: 2.9e-5 6.0e-5 1.1e-4 3.7e-5 6.5e-5 (max 1.1e-4)
+    ("pinn_hard", 3e-4),
+    # measured rel_l2, seeds 0-4: 5.2e-3 5.8e-3 5.2e-3 4.8e-3 5.1e-3 (max 5.8e-3)
+    ("pinn_soft", 1.5e-2),
+])
+def test_strong_form_accuracy(name, threshold):
+    prob, sol, _ = _run(name)
+    err = solution_errors(prob, sol, prob.eval_set(0))["rel_l2"]
+    assert err < threshold, f"{name}: relative L2 error {err:.3e} >= {threshold:.1e}"
+
+
+def test_deep_ritz_accuracy():
+    """Deep Ritz is limited by its quasi-Monte Carlo energy quadrature, hence 1024 points.
+    measured rel_l2, seeds 0-4: 1.8e-3 5.3e-3 2.2e-3 1.3e-3 2.7e-3 (max 5.3e-3)."""
+    prob, sol, _ = _run("pinn_ritz", n_interior=1024)
+    err = solution_errors(prob, sol, prob.eval_set(0))["rel_l2"]
+    assert err < 1.5e-2, f"pinn_ritz: relative L2 error {err:.3e} >= 1.5e-2"
+
+
+# -- reproducibility -----------------------------------------------------------------------------
+def test_same_seed_same_result_and_seeds_differ():
+    pts = np.random.default_rng(5).uniform(0, 1, (200, 2))
+    small = {"adam_steps": 100, "lbfgs_steps": 30}
+    a = _run("pinn_rar", seed=3, rar_every=40, rar_add=20, rar_candidates=500, **small)[1].evaluate(pts)
+    b = _run("pinn_rar", seed=3, rar_every=40, rar_add=20, rar_candidates=500, **small)[1].evaluate(pts)
+    c = _run("pinn_rar", seed=4, rar_every=40, rar_add=20, rar_candidates=500, **small)[1].evaluate(pts)
+    np.testing.assert_array_equal(a, b)
+    assert np.max(np.abs(a - c)) > 1e-6, "seeds 3 and 4 gave the same network"
+
+
+def test_rar_adds_points():
+    _, sol, _ = _run("pinn_rar", adam_steps=100, lbfgs_steps=0, rar_every=40, rar_add=20,
+                     rar_candidates=500)
+    # refinements after steps 40 and 80 (none after the last step)
+    assert sol.info["n_interior"] == TINY["n_interior"] + 2 * 20
+
+
+# -- failures and budgets ------------------------------------------------------------------------
+@pytest.mark.parametrize("activation,why", [
+    ("silu", "loss became nan"),   # unbounded activation: the loss overflows to NaN
+    ("tanh", "loss grew from"),    # saturating activation: finite but astronomically large loss
+])
+def test_absurd_learning_rate_is_diverged(tmp_path, activation, why):
+    from bench.run import Case, run_case
+
+    case = Case(problem={"name": "sine"}, solver={"name": "pinn_soft", **TINY, "lr": 1e12,
+                                                   "lbfgs_steps": 0, "activation": activation},
+                seed=0, budget={"time_limit": 60})
+    rec, _ = run_case(case, results_dir=tmp_path)
+    assert rec["status"] == "diverged", rec["reason"]
+    assert rec.get("step") is not None and why in rec["reason"]
+
+
+def test_wall_clock_cap_stops_training():
+    """With a 1.5 s cap and a step budget far beyond it, training stops on the cap; the time it
+    overran by is compared with the run's own mean step time, not with a fixed limit."""
+    _, sol, ctx = _run("pinn_hard", train_time=1.5, adam_steps=10 ** 6, lbfgs_steps=10 ** 6)
+    info = sol.info
+    assert info["stopped"] == "time_cap"
+    assert info["steps"] < 10 ** 6
+    step_time = ctx.timings["train"] / max(info["steps"], 1)
+    assert ctx.timings["train"] < 1.5 + 10 * step_time + 0.5
+
+
+def test_cap_during_lbfgs_keeps_best_parameters():
+    _, sol, ctx = _run("pinn_hard", train_time=1.5, adam_steps=20, lbfgs_steps=10 ** 6)
+    assert sol.info["stopped"] == "time_cap" and sol.info["lbfgs_iterations"] > 0
+    assert math.isfinite(sol.info["final_loss"])
+
+
+def test_history_is_geometric_in_time(tmp_path):
+    """Through the harness: checkpoints carry the loss terms and the harness-side error."""
+    from bench.run import Case, run_case
+    from solvers.pinn.train import CHECKPOINT_FIRST, CHECKPOINT_GROWTH
+
+    case = Case(problem={"name": "sine"}, solver={"name": "pinn_hard", **TINY}, seed=0,
+                budget={"time_limit": 120})
+    rec, _ = run_case(case, results_dir=tmp_path)
+    assert rec["status"] == "ok", rec["reason"]
+    hist = rec["history"]
+    assert hist[0]["step"] == 0 and hist[-1]["step"] == rec["cost"]["iterations"]
+    assert all({"loss", "loss_pde", "rel_l2", "time"} <= set(h) for h in hist)
+    t = np.array([h["time"] for h in hist])
+    assert np.all(np.diff(t) > 0)
+    # training time of the checkpoints between the first step and the end; each must fall in its
+    # own interval [FIRST G^k, FIRST G^(k+1)) of the geometric grid
+    tau = t[1:-1] - rec["timings"]["setup"]
+    k = np.floor(np.log(tau / CHECKPOINT_FIRST) / np.log(CHECKPOINT_GROWTH))
+    assert np.all(tau >= CHECKPOINT_FIRST) and np.all(np.diff(k) >= 1), (tau, k)
+    assert hist[-1]["rel_l2"] == pytest.approx(rec["metrics"]["rel_l2"], rel=1e-9)
