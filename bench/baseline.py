@@ -156,6 +156,7 @@ def entry_from_record(rec: dict) -> tuple[str, dict]:
         "resolution": solver.get("resolution_label") or ",".join(f"{k}={v}" for k, v in res.items()),
         "options": options,
         "seed": int(rec.get("seed") or 0),
+        "family": solver.get("family") or "",
         "deterministic": bool(solver.get("deterministic", True)),
         "status": rec.get("status", "failed"),
         "reason": str(rec.get("reason") or "")[:REASON_CHARS],

@@ -21,6 +21,7 @@ commands:
   report   tables of the records (options: report.<key>=...)
   check    compare a suite's records with results/baseline/<suite>.json (exit 0 / 1 regression)
   baseline write results/baseline/<suite>.json from a suite's records (options: check.<key>=...)
+  tones    membrane frequencies of eigen records: speed=C or tension=T density=RHO (bench/tones.py)
   conform  run the solver conformance checks on one solver config (a plug-in's: --config-dir DIR)
 
 examples:
@@ -103,11 +104,16 @@ class Args:
         return ["hydra.searchpath=[" + ",".join(f"file://{Path(d).resolve()}" for d in self.config_dirs) + "]"]
 
 
-def _group_options(group: str) -> list[str]:
+def _group_options(group: str, overrides: list[str] | None = None) -> list[str]:
+    """Options of a config group; pass the `hydra.searchpath` override to include --config-dir folders."""
     from hydra.core.global_hydra import GlobalHydra
 
+    searchpath = [o for o in overrides or [] if o.startswith("hydra.searchpath=")]
     try:
-        return sorted(GlobalHydra.instance().config_loader().get_group_options(group))
+        loader = GlobalHydra.instance().config_loader()
+        if searchpath:
+            return sorted(set(loader.get_group_options(group, config_name=_CONFIG_NAME[0], overrides=searchpath)))
+        return sorted(loader.get_group_options(group))
     except Exception:  # noqa: BLE001
         return []
 
@@ -120,7 +126,7 @@ def _translate_hydra_error(exc: Exception, overrides: list[str]) -> str:
         missing = msg.split("Could not find '", 1)[1].split("'", 1)[0]
         group, _, option = missing.rpartition("/")
         if group:
-            opts = _group_options(group)
+            opts = _group_options(group, overrides)
             return f"`{group}` must be one of: {', '.join(opts)}; got {option!r}"
         return f"config {missing!r} not found"
     if "Could not override '" in msg:
@@ -459,7 +465,7 @@ def cmd_list(argv: list[str]) -> int:
     args = Args(argv)
     with initialize_config_dir(config_dir=str(conf_dir()), version_base="1.3"):
         problems = {}
-        for name in _group_options("problem"):
+        for name in _group_options("problem", args.searchpath_overrides()):
             try:
                 cfg = compose_case(args.searchpath_overrides() + [f"problem={name}"])
                 from omegaconf import OmegaConf
@@ -467,7 +473,7 @@ def cmd_list(argv: list[str]) -> int:
                 problems[name] = make_problem(OmegaConf.to_container(cfg.problem, resolve=True))
             except Exception as exc:  # noqa: BLE001
                 problems[name] = exc
-        solver_names = _group_options("solver")
+        solver_names = _group_options("solver", args.searchpath_overrides())
         solvers = {}
         for name in solver_names:
             try:
@@ -533,8 +539,14 @@ def cmd_report(argv: list[str]) -> int:
 from bench.check import cmd_baseline, cmd_check  # noqa: E402  (the check stage: bench/check.py)
 from bench.plugins import cmd_conform  # noqa: E402  (plug-in conformance: bench/plugins.py)
 
+def _cmd_tones(argv: list[str]) -> int:
+    from bench.tones import cmd_tones
+
+    return cmd_tones(argv)
+
+
 COMMANDS = {"run": cmd_run, "list": cmd_list, "report": cmd_report, "check": cmd_check, "baseline": cmd_baseline,
-            "conform": cmd_conform}
+            "conform": cmd_conform, "tones": _cmd_tones}
 
 
 def main(argv: list[str] | None = None) -> int:

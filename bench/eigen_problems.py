@@ -78,7 +78,10 @@ class EigenProblem(Problem):
         return dataclasses.replace(pub, reference={}, recipe=None, known=[])
 
     def describe(self) -> dict:
-        return {**super().describe(), "n_eigs": self.n_eigs, "reference": self.reference}
+        ref = dict(self.reference)
+        if self.eigenvalues is not None:
+            ref.setdefault("eigenvalues", [float(v) for v in self.eigenvalues])
+        return {**super().describe(), "n_eigs": self.n_eigs, "reference": ref}
 
     def ensure_reference(self, results_dir: str | Path = "results") -> None:
         """Compute (or load from the cache) a computed reference; a no-op for closed forms."""
@@ -383,20 +386,13 @@ def richardson(values: np.ndarray, p: int) -> tuple[float, float, float]:
 
 
 def _mesh_levels(domain, triangles: int, levels: int):
-    """Nested uniform refinements of the polygon's triangulation; the finest has >= `triangles`."""
-    from skfem import MeshTri
+    """Nested uniform refinements of the polygon's coarse triangulation (solvers.fem.build_mesh);
+    the finest has at least `triangles` triangles, and the coarsest is refined at least once."""
+    from solvers.fem import build_mesh
 
-    tri = np.asarray(domain.triangles)                      # (T, 3, 2)
-    pts, inv = np.unique(np.round(tri.reshape(-1, 2), 12), axis=0, return_inverse=True)
-    mesh = MeshTri(pts.T.copy(), inv.reshape(-1, 3).T.copy())
-    # refine once first: no coarse triangle then has all three vertices on the boundary
-    mesh = mesh.refined(1)
-    while mesh.t.shape[1] * 4 ** (levels - 1) < triangles:
-        mesh = mesh.refined(1)
-    out = [mesh]
-    for _ in range(levels - 1):
-        out.append(out[-1].refined(1))
-    return out
+    T0 = build_mesh(domain, 0).t.shape[1]
+    top = max(levels, int(math.ceil(math.log(max(triangles / T0, 1.0), 4))))
+    return [build_mesh(domain, L) for L in range(top - levels + 1, top + 1)]
 
 
 def computed_reference(domain, recipe: dict, cache_dir: str | Path) -> dict:
@@ -473,20 +469,22 @@ def _hmax(mesh) -> float:
 
 
 class _ReferenceModes:
-    """Modes of a computed reference: the finest-level FEM functions, evaluated by point location."""
+    """Modes of a computed reference: the finest-level FEM functions (solvers.fem.FEMFunction)."""
 
     def __init__(self, p, t, order, V, n):
         self.p, self.t, self.order, self.V = np.asarray(p), np.asarray(t), int(order), np.asarray(V)[:, :n]
-        self._basis = None
+        self._fields = None
 
     def __call__(self, points):
-        if self._basis is None:
-            from skfem import Basis, ElementTriP1, ElementTriP2, MeshTri
+        if self._fields is None:
+            from skfem import Basis, ElementTriP1, ElementTriP2, MeshTri1
 
-            mesh = MeshTri(self.p, self.t)
-            self._basis = Basis(mesh, {1: ElementTriP1, 2: ElementTriP2}[self.order]())
-        P = self._basis.probes(np.asarray(points, dtype=float).T)
-        return np.asarray(P @ self.V)
+            from solvers.fem import FEMFunction
+
+            basis = Basis(MeshTri1(self.p, self.t), {1: ElementTriP1, 2: ElementTriP2}[self.order]())
+            self._fields = [FEMFunction(basis, self.V[:, j]) for j in range(self.V.shape[1])]
+        p = np.asarray(points, dtype=float)
+        return np.column_stack([f(p) for f in self._fields])
 
 
 def _register():

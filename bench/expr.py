@@ -138,7 +138,8 @@ def parse(text: str, field: str = "problem.u") -> sp.Expr:
         raise
     except (RecursionError, OverflowError, ZeroDivisionError, TypeError, ValueError) as exc:
         raise ExpressionError(f"`{field}`: cannot build expression {text[:80]!r}: {exc}") from None
-    if not isinstance(expr, sp.Expr) or expr.has(sp.zoo, sp.nan, sp.oo, -sp.oo):
+    # `is_real is False` catches constants such as sqrt(-1); sympy answers None when it cannot tell
+    if not isinstance(expr, sp.Expr) or expr.has(sp.zoo, sp.nan, sp.oo, -sp.oo) or expr.is_real is False:
         raise ExpressionError(f"`{field}`: expression {text[:80]!r} is not a finite real expression")
     return expr
 

@@ -236,7 +236,8 @@ def fig_training(pid, frame, pts, recs, cfg, folder) -> Figure | None:
     for i in g.index:
         key = metric_key(recs[i], cfg.metric, cfg.eigen_metric)
         h = [(c.get("time"), c.get(key)) for c in (recs[i].get("history") or [])]
-        h = [(t, e) for t, e in h if t is not None and e is not None and np.isfinite(t) and np.isfinite(e) and e > 0]
+        h = [(t, e) for t, e in h if t is not None and e is not None and np.isfinite(t) and np.isfinite(e)
+             and e > 0]
         if h:
             curves.append((i, sorted(h)))
     if not curves:
@@ -362,7 +363,57 @@ def fig_field(recs, frame, cfg, folder) -> Figure | None:
                   "Error of the computed solution minus the exact one on a 41 x 41 grid over the domain's "
                   "bounding box (white: outside the domain or excluded), diverging colour map centred at "
                   "zero, one colour scale per panel. Per problem and method the most accurate run among those "
-                  "recorded with save_field=true that match the report's `field` options.", _save(fig, folder, key, cfg), pid)
+                  "recorded with save_field=true that match the report's `field` options.",
+                  _save(fig, folder, key, cfg), pid)
+
+
+def fig_overview(recs, frame, pts, cfg, folder) -> Figure | None:
+    """Best error of each method on each problem, problems in natural order (frequency or
+    sharpness growing to the right)."""
+    import matplotlib.pyplot as plt
+
+    from bench.report import _is_learned, best_errors, natural_key
+
+    best = best_errors(recs, frame, cfg, points=pts)
+    problems = sorted(best["problem_id"].unique(), key=natural_key)
+    if len(problems) < 2:
+        return None
+    # problems of one family (same name) are joined by lines; a gap separates families
+    name = {p: str(p).split("(", 1)[0] for p in problems}
+    pos, x = {}, 0.0
+    for k, p in enumerate(problems):
+        if k and name[p] != name[problems[k - 1]]:
+            x += 0.6
+        pos[p] = x
+        x += 1.0
+    colours, markers = family_colours(frame["family"]), _markers(frame)
+    fig, ax = plt.subplots(figsize=(cfg.figures.width, cfg.figures.height), layout="constrained")
+    for tol in cfg.tolerances:
+        ax.axhline(tol, color="#9a9a9a", lw=0.8, ls=":", zorder=0)
+    drawn = False
+    for (fam, solver), g in best.groupby(["family", "solver"], sort=True):
+        g = g[np.isfinite(g["error"].astype(float)) & (g["error"].astype(float) > 0)]
+        if g.empty:
+            continue
+        g = g.assign(x=g["problem_id"].map(pos), name=g["problem_id"].map(name)).sort_values("x")
+        for _, seg in g.groupby("name", sort=False):
+            ax.plot(seg["x"], seg["error"], color=colours[fam], marker=markers[solver], lw=1.2, ms=5,
+                    ls="--" if _is_learned(fam) else "-", label=solver)
+        drawn = True
+    if not drawn:
+        plt.close(fig)
+        return None
+    ax.set_yscale("log")
+    ax.set_xticks([pos[p] for p in problems], problems, rotation=30, ha="right", fontsize="small")
+    ax.set_xlabel("problem (knobs in brackets)")
+    ax.set_ylabel(_error_label(cfg))
+    _legend(fig, ax)
+    key = "best_error_by_problem"
+    return Figure(key, "Best error per problem",
+                  "Least error each method reached on each problem with any configuration and no time limit "
+                  "(upper median over seeds); learned methods dashed. Problems are ordered by their knobs, so "
+                  "frequency or sharpness grows to the right within a problem family.",
+                  _save(fig, folder, key, cfg), None)
 
 
 def _slug(text):
@@ -379,7 +430,7 @@ def make_figures(recs, frame, cfg, folder: Path) -> list[Figure]:
     import matplotlib.pyplot as plt
     from tqdm import tqdm
 
-    from bench.report import order_fits, run_points
+    from bench.report import natural_key, order_fits, run_points
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -387,13 +438,15 @@ def make_figures(recs, frame, cfg, folder: Path) -> list[Figure]:
     pts = run_points(recs, frame, cfg.metric, cfg.eigen_metric)
     fits = order_fits(frame, cfg.fit.floor, cfg.fit.points) if "order" in kinds else None
     jobs = []
-    for pid in sorted(frame["problem_id"].unique()):
+    for pid in sorted(frame["problem_id"].unique(), key=natural_key):
         if "pareto" in kinds:
             jobs.append(lambda pid=pid: fig_pareto(pid, frame, pts, cfg, folder))
         if "order" in kinds:
             jobs.append(lambda pid=pid: fig_order(pid, frame, fits, cfg, folder))
         if "training" in kinds:
             jobs.append(lambda pid=pid: fig_training(pid, frame, pts, recs, cfg, folder))
+    if "overview" in kinds:
+        jobs.append(lambda: fig_overview(recs, frame, pts, cfg, folder))
     if "field" in kinds:
         jobs.append(lambda: fig_field(recs, frame, cfg, folder))
     out = []

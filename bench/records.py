@@ -88,7 +88,8 @@ MAX_RECORD_BYTES = 256 * 2 ** 20   # a record with a long history is a few MiB; 
 # absent or null). A file that breaks one of them is foreign and skipped, never a crash later.
 _SHAPE = {"problem": (dict,), "solver": (dict,), "metrics": (dict, None), "timings": (dict, None),
           "cost": (dict, None), "budget": (dict, None), "environment": (dict, None), "info": (dict, None),
-          "history": (list, None), "reason": (str, None), "suite": (str, None)}
+          "history": (list, None), "reason": (str, None), "suite": (str, None), "seed": (int, None),
+          "threads": (int, None), "case_id": (str, None), "config_hash": (str, None)}
 _NESTED = {("problem", "domain"): (dict, None), ("problem", "label"): (str, None),
            ("problem", "id"): (str, None), ("solver", "name"): (str,),
            ("solver", "resolution"): (dict, None), ("solver", "resolution_label"): (str, None)}
@@ -107,6 +108,10 @@ def _shape_error(rec) -> str | None:
     for keys, value, types in checks:
         if not (value is None and None in types) and not isinstance(value, tuple(t for t in types if t)):
             return f"field {'.'.join(keys)!r} holds {type(value).__name__}"
+    for key in ("timings", "cost"):  # table columns: one JSON scalar per cell
+        for k, v in (rec.get(key) or {}).items():
+            if isinstance(v, (list, dict)):
+                return f"field {key}.{k!r} holds {type(v).__name__}"
     return None
 
 

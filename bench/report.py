@@ -43,12 +43,13 @@ from bench.config import ConfigError, in_range, one_of, positive
 
 __all__ = ["ReportConfig", "FigureOptions", "FitOptions", "FieldOptions", "Table", "results_table",
            "to_markdown", "run_points", "pareto_front", "time_to_tolerance", "accuracy_at_budget",
-           "speedup_table", "order_fits", "seed_summary", "status_counts", "build_tables", "metric_key", "upper_median",
+           "speedup_table", "order_fits", "seed_summary", "status_counts", "build_tables", "metric_key",
+           "upper_median", "best_errors", "natural_key",
            "latex_tabular", "write_report", "LEARNED_FAMILIES"]
 
 FORMATS = ("md", "csv", "tex", "html")
 METRICS = ("rel_l2", "abs_l2", "max_abs", "rel_max", "nodal_max")
-FIGURE_KINDS = ("pareto", "order", "training", "field")
+FIGURE_KINDS = ("pareto", "order", "training", "field", "overview")
 IMAGE_FORMATS = ("png", "svg")
 LEARNED_FAMILIES = ("pinn",)       # everything else is a classical method
 FAIL_STATUSES = ("failed", "timeout", "diverged", "crashed", "out_of_memory", "unsupported")
@@ -217,6 +218,7 @@ def _with_labels(frame, recs):
         f = {f"{k}": v for k, v in _flatten(r["solver"].get("config") or {}).items() if k not in ("name",)}
         b = r.get("budget") or {}
         f["train"] = b.get("train_time")
+        f["limit"] = b.get("time_limit")
         f["threads"] = r.get("threads_requested", r.get("threads"))
         flat.append(f)
     labels, variants = [""] * len(recs), [""] * len(recs)
@@ -237,8 +239,8 @@ def _with_labels(frame, recs):
 
 
 def _kv(k, v) -> str:
-    if k == "train":
-        return f"train={_g(v)}s" if v is not None else "train=default"
+    if k in ("train", "limit"):
+        return f"{k}={_g(v)}s" if v is not None else f"{k}=default"
     return f"{k}={v}"
 
 
@@ -300,6 +302,20 @@ def upper_median(values) -> float:
     return float(v[len(v) // 2]) if len(v) else math.inf
 
 
+def natural_key(text) -> tuple:
+    """Sort key that orders embedded numbers by value: sine(k=2) before sine(k=16)."""
+    parts = re.split(r"(\d+(?:\.\d+)?(?:e[-+]?\d+)?)", str(text))
+    return tuple(float(p) if i % 2 else p for i, p in enumerate(parts))
+
+
+def _by_problem(df):
+    """Rows in natural problem order (stable: the order within a problem is kept)."""
+    if len(df) == 0:
+        return df
+    order = sorted(range(len(df)), key=lambda i: natural_key(df["problem_id"].iloc[i]))
+    return df.iloc[order].reset_index(drop=True)
+
+
 def _run_level(frame, points, value_fn):
     """value_fn(points of one run) -> float per record (inf without points), for every record."""
     by_row = {row: g for row, g in points.groupby("row")} if len(points) else {}
@@ -352,7 +368,7 @@ def time_to_tolerance(recs, frame, tolerances, metric: str = "rel_l2", points=No
                          "mem_mb": b["mem_mb"], "unsupported": b["all_unsupported"]})
     cols = ["problem_id", "solver", "family", "tolerance", "time_s", "reached", "config", "seeds_reached",
             "seeds", "mem_mb", "unsupported"]
-    return pd.DataFrame(rows, columns=cols)
+    return _by_problem(pd.DataFrame(rows, columns=cols))
 
 
 def accuracy_at_budget(recs, frame, budgets, metric: str = "rel_l2", points=None):
@@ -375,7 +391,23 @@ def accuracy_at_budget(recs, frame, budgets, metric: str = "rel_l2", points=None
                          "unsupported": b["all_unsupported"]})
     cols = ["problem_id", "solver", "family", "budget_s", "error", "within", "config", "seeds_within",
             "seeds", "unsupported"]
-    return pd.DataFrame(rows, columns=cols)
+    return _by_problem(pd.DataFrame(rows, columns=cols))
+
+
+def best_errors(recs, frame, cfg: ReportConfig, points=None):
+    """Per problem and method: accuracy-at-budget with an unlimited budget (the best any
+    configuration reached, upper median over its seeds)."""
+    pts = run_points(recs, frame, cfg.metric, cfg.eigen_metric) if points is None else points
+    out = accuracy_at_budget(recs, frame, [math.inf], cfg.metric, points=pts)
+    return out.drop(columns=["budget_s"])
+
+
+FAMILY_ORDER = ("fd", "spectral", "fem", "pinn")   # reading order of method columns
+
+
+def _method_rank(df, solver) -> tuple:
+    fam = df.loc[df["solver"] == solver, "family"].iloc[0]
+    return (FAMILY_ORDER.index(fam) if fam in FAMILY_ORDER else len(FAMILY_ORDER), str(fam), solver)
 
 
 def _is_learned(family) -> bool:
@@ -426,7 +458,7 @@ def speedup_table(recs, frame, tolerances, metric: str = "rel_l2", points=None):
                          "winner": winner, "speedup": speedup})
     cols = ["problem_id", "level", "error", "classical", "classical_config", "classical_time_s", "learned",
             "learned_config", "learned_time_s", "winner", "speedup"]
-    return pd.DataFrame(rows, columns=cols)
+    return _by_problem(pd.DataFrame(rows, columns=cols))
 
 
 def _fit_line(x, y) -> tuple[float, float]:
@@ -443,7 +475,8 @@ def order_fits(frame, floor: float = 1e-11, points: int = 4):
     the first error at or below `floor` are dropped, and so are those finer than the least error
     (the round-off plateau); from the least error the range extends coarser while the error keeps
     rising (a pre-asymptotic bump ends it); of that range the finest `points` are fitted (0: all).
-    ``order`` is the least-squares slope of log error against log h (when every run reports h); ``slope_dofs`` and ``intercept_dofs`` are the least-squares line of log error against
+    ``order`` is the least-squares slope of log error against log h (when every run reports h);
+    ``slope_dofs`` and ``intercept_dofs`` are the least-squares line of log error against
     log dofs (slope about -order/2 in two dimensions). Fewer than two points give NaN and say why.
     """
     import pandas as pd
@@ -494,7 +527,7 @@ def order_fits(frame, floor: float = 1e-11, points: int = 4):
     cols = ["problem_id", "solver", "family", "variant", "order", "slope_dofs", "intercept_dofs", "points",
             "h_max", "h_min",
             "dofs_min", "dofs_max", "error_max", "error_min", "note"]
-    return pd.DataFrame(rows, columns=cols)
+    return _by_problem(pd.DataFrame(rows, columns=cols))
 
 
 def seed_summary(frame):
@@ -518,7 +551,7 @@ def seed_summary(frame):
         rows.append(row)
     cols = ["problem_id", "solver", "config", "seeds", "ok", "error_median", "error_min", "error_max",
             "time_median_s", *FAIL_STATUSES]
-    return pd.DataFrame(rows, columns=cols)
+    return _by_problem(pd.DataFrame(rows, columns=cols))
 
 
 def status_counts(frame):
@@ -533,7 +566,7 @@ def status_counts(frame):
             row[s] = int((g["status"] == s).sum())
         row["other"] = len(g) - sum(row[s] for s in statuses)
         rows.append(row)
-    out = pd.DataFrame(rows, columns=["problem_id", "solver", "runs", *statuses, "other"])
+    out = _by_problem(pd.DataFrame(rows, columns=["problem_id", "solver", "runs", *statuses, "other"]))
     if len(out):
         total = {"problem_id": "all", "solver": "all", **{c: int(out[c].sum()) for c in out.columns[2:]}}
         out = pd.concat([out, pd.DataFrame([total])], ignore_index=True)
@@ -624,7 +657,7 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
     ab = accuracy_at_budget(recs, frame, cfg.budgets, cfg.metric, points=pts)
     sp = speedup_table(recs, frame, cfg.tolerances, cfg.metric, points=pts)
     metric = _metric_name(cfg)
-    for pid in sorted(frame["problem_id"].unique()):
+    for pid in sorted(frame["problem_id"].unique(), key=natural_key):
         slug = _slug(pid)
         t = tt[tt["problem_id"] == pid]
         disp = {}
@@ -635,7 +668,8 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
         tables.append(Table(f"time_to_tolerance__{slug}", f"Time to tolerance: {pid}",
                             f"Least method time in seconds (setup + solve, or setup + training) at which "
                             f"each method's {metric} reached the tolerance; in brackets the configuration, "
-                            f"its memory (peak resident set above the harness, MiB) and how many of its seeds got there "
+                            f"its memory (peak resident set above the harness, MiB) and how many of its seeds "
+                            f"got there "
                             f"(upper median over seeds). First checkpoint at or below the tolerance, "
                             f"no interpolation.", t.reset_index(drop=True),
                             pd.DataFrame(list(disp.values())), pid))
@@ -665,6 +699,18 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
             tables.append(Table(f"speedup__{slug}", f"Speed-up at equal accuracy: {pid}",
                                 "Time-to-tolerance of the best classical method against the best learned "
                                 "method; speed-up = slower time / faster time.", s.reset_index(drop=True), d, pid))
+    best = best_errors(recs, frame, cfg, points=pts)
+    if len(best):
+        methods = sorted(set(best["solver"]), key=lambda m: _method_rank(best, m))
+        rows = []
+        for pid in sorted(best["problem_id"].unique(), key=natural_key):
+            g = best[best["problem_id"] == pid].set_index("solver")
+            rows.append({"problem": pid, **{m: (_cell_err(g.loc[m]) if m in g.index else "") for m in methods}})
+        tables.append(Table("best_error", "Best error per problem",
+                            f"Least {metric} each method reached on each problem with any of its "
+                            "configurations and no time limit (upper median over seeds); read down a column "
+                            "to see how a method's error grows with frequency or sharpness.",
+                            best, pd.DataFrame(rows)))
     fits = order_fits(frame, cfg.fit.floor, cfg.fit.points)
     if len(fits):
         d = pd.DataFrame({
@@ -702,7 +748,7 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
                             f"Final {metric} of learned methods: median and spread over the seeds that "
                             "finished ok, median method time, and failures by status.", seeds, d))
     counts = status_counts(frame)
-    d = counts.astype(str)
+    d = counts.astype(str).rename(columns={"problem_id": "problem", "solver": "method"})
     tables.append(Table("status_counts", "Runs by status",
                         "Every run read for this report, by status; failed, timed-out, diverged, crashed, "
                         "out-of-memory and unsupported runs count as not reached in the tables above.",
@@ -926,7 +972,8 @@ def _latex_document(title, tables) -> str:
 
 
 def _html(title, cfg, recs, tables, figs, out: Path, csv_files) -> str:
-    parts = [f"<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{html.escape(title)}</title>"
+    parts = [f"<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+             f"<title>{html.escape(title)}</title>"
              f"<style>{_CSS}</style></head><body>", f"<h1>{html.escape(title)}</h1>",
              f"<p>{html.escape(_filters_text(cfg, recs))}</p>"]
     if recs:
@@ -946,7 +993,8 @@ def _html(title, cfg, recs, tables, figs, out: Path, csv_files) -> str:
         for f in fs:
             src = f.paths.get("png") or f.paths.get("svg")
             parts.append(f"<figure><img alt=\"{html.escape(f.title)}\" src=\"{_data_uri(src)}\">"
-                         f"<figcaption><b>{html.escape(f.title)}.</b> {html.escape(f.caption)}</figcaption></figure>")
+                         f"<figcaption><b>{html.escape(f.title)}.</b> {html.escape(f.caption)}</figcaption>"
+                         "</figure>")
     parts.append("</body></html>\n")
     return "\n".join(parts)
 

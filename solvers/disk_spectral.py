@@ -45,7 +45,7 @@ class DiskChebyshev(Solver):
     description = "Chebyshev (radius) x Fourier (angle) collocation on a disk, mode by mode"
     reference = "Trefethen, Spectral Methods in MATLAB, SIAM 2000, ch. 11; Fornberg 1996"
     Params = DiskChebParams
-    tags = Tags(kinds=frozenset({"laplace", "poisson"}), domains=frozenset({"disk"}))
+    tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=frozenset({"disk"}))
 
     def resolution(self) -> dict:
         return {"n": self.params.n, "m": self.params.m}
@@ -58,6 +58,12 @@ class DiskChebyshev(Solver):
     def _solve(self, problem, budget, ctx):
         d = problem.domain
         n, m = self.params.n, self.params.m
+        if problem.kind == "eigen":  # radial eigenproblems per wavenumber (solvers/eigen.py)
+            from solvers.eigen import disk_eigen
+
+            with ctx.phase("solve"):
+                return disk_eigen((d.cx, d.cy), d.radius, 2 * n + 1, problem.n_eigs,
+                                  {"h": float(d.radius / n)}, max_wavenumber=m // 2)
         N = 2 * n + 1
         with ctx.phase("setup"):
             D, r = cheb(N)                       # r_0 = 1 > r_1 > ... > r_N = -1

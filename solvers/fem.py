@@ -10,6 +10,7 @@ the boundary lie on the circle, so the geometry error O(h^3) does not spoil the 
 from __future__ import annotations
 
 import dataclasses
+import logging
 import math
 
 import numpy as np
@@ -19,6 +20,9 @@ from solvers.base import Solution, Solver, Tags
 from solvers.linalg import LINEAR_SOLVERS, solve_spd
 
 __all__ = ["FEMP1", "FEMP2", "build_mesh", "FEMFunction", "MAX_LEVEL"]
+
+# scikit-fem logs every assembly at INFO level; the harness's stdout logging would print them all
+logging.getLogger("skfem").setLevel(logging.WARNING)
 
 MAX_LEVEL = 16   # 4^16 times the coarse elements: far beyond any machine; memory estimate refuses earlier
 FEM_DOMAINS = frozenset({"rectangle", "polygon", "disk", "annulus"})
@@ -99,6 +103,13 @@ def _project_boundary(domain, pts: np.ndarray) -> np.ndarray:
     return c + d * (target / r)
 
 
+def boundary_facets(mesh) -> np.ndarray:
+    """Facets that belong to one element only (counted from t2f; scikit-fem's own
+    ``boundary_facets`` builds the facet-to-element map first, which took 2 s at 260k elements)."""
+    count = np.bincount(mesh.t2f.ravel(), minlength=mesh.facets.shape[1])
+    return np.nonzero(count == 1)[0]
+
+
 def coarse_h(domain) -> float:
     """Largest edge of the coarse mesh (level 0)."""
     if domain.kind == "annulus":
@@ -127,7 +138,7 @@ def build_mesh(domain, level: int, quadratic: bool = False):
         m = MeshTri1(p * domain.radius + np.array([[domain.cx], [domain.cy]]), t)
         for _ in range(level):
             m = m.refined()
-            D = m.boundary_nodes()
+            D = np.unique(m.facets[:, boundary_facets(m)])
             q = m.p.copy()
             q[:, D] = _project_boundary(domain, q[:, D])
             m = dataclasses.replace(m, doflocs=q)
@@ -136,7 +147,7 @@ def build_mesh(domain, level: int, quadratic: bool = False):
         m = MeshTri1(p, t).refined(level) if level > 0 else MeshTri1(p, t)
     if quadratic and domain.kind in ("disk", "annulus"):
         M = MeshTri2.from_mesh(m)
-        D = M.dofs.get_facet_dofs(M.boundary_facets()).flatten()
+        D = M.dofs.get_facet_dofs(boundary_facets(M)).flatten()
         q = M.doflocs.copy()
         q[:, D] = _project_boundary(domain, q[:, D])
         return dataclasses.replace(M, doflocs=q)
@@ -241,11 +252,12 @@ class _FEM(Solver):
     family = "fem"
     degree = 1
     Params = FEMParams
-    tags = Tags(kinds=frozenset({"laplace", "poisson"}), domains=FEM_DOMAINS)
+    tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=FEM_DOMAINS)
 
     @classmethod
     def preload(cls) -> None:
-        import skfem  # noqa: F401  (about 0.5 s; paid once in the harness parent)
+        import pyamg  # noqa: F401  (imports cost about 0.5 s each; paid once in the parent)
+        import skfem  # noqa: F401
 
     def effective_level(self, domain) -> int:
         """`level`, or the smallest level whose largest edge is at most `h`."""
@@ -272,10 +284,20 @@ class _FEM(Solver):
 
         domain = problem.domain
         level = self.effective_level(domain)
+        if problem.kind == "eigen":  # K x = lambda M x by shift-invert Lanczos (solvers/eigen.py)
+            from solvers.eigen import fem_eigen_solution
+
+            with ctx.phase("setup"):
+                mesh = build_mesh(domain, level, quadratic=self.degree == 2)
+            with ctx.phase("solve"):
+                return fem_eigen_solution(mesh, self.degree, problem.n_eigs,
+                                          {"elements": int(mesh.t.shape[1]), "level": int(level),
+                                           "h": _mesh_h(mesh), "degree": self.degree})
         with ctx.phase("setup"):
             mesh = build_mesh(domain, level, quadratic=self.degree == 2)
             elem = ElementTriP1() if self.degree == 1 else ElementTriP2()
-            basis = Basis(mesh, elem, intorder=2 * self.degree + 1)
+            # degree 2p: exact stiffness on affine elements, load error below the FE error
+            basis = Basis(mesh, elem, intorder=2 * self.degree)
 
             @BilinearForm
             def laplace(u, v, w):
@@ -292,7 +314,7 @@ class _FEM(Solver):
                 b = asm(load, basis)
             else:
                 b = np.zeros(basis.N)
-            D = basis.get_dofs().flatten()
+            D = basis.get_dofs(facets=boundary_facets(mesh)).flatten()
             uD = np.zeros(basis.N)
             if problem.g is not None:
                 uD[D] = problem.g(basis.doflocs[:, D].T)

@@ -23,10 +23,11 @@ TEST_BUDGETS = {
     # PINNs: 2 x 12 tanh net, 128 points, 100 Adam + 30 L-BFGS steps: about a second per solve,
     # rel. L2 on sine well below the 0.5 sanity bound (measured: 1e-2 soft, 1e-3 hard)
     **{name: {"width": 12, "depth": 2, "n_interior": 128, "n_boundary": 64, "adam_steps": 100,
-              "lbfgs_steps": 30, "rar_candidates": 512, "rar_every": 50, "rar_add": 16,
-              "fourier_features": 8 if name == "pinn_fourier" else 0,
-              "resample_every": 50 if name == "pinn_ritz" else 0}
-       for name in ("pinn_soft", "pinn_hard", "pinn_ritz", "pinn_fourier", "pinn_rar")},
+              "lbfgs_steps": 30, **extra}
+       for name, extra in (("pinn_soft", {}), ("pinn_hard", {}),
+                           ("pinn_ritz", {"resample_every": 50}),
+                           ("pinn_fourier", {"fourier_features": 8}),
+                           ("pinn_rar", {"rar_every": 50, "rar_candidates": 512, "rar_add": 16}))},
 }
 
 # (solver, check) -> reason. Empty: every solver passes every applicable check.

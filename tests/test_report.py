@@ -10,7 +10,6 @@ import html.parser
 import math
 import re
 import subprocess
-import sys
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
@@ -20,9 +19,9 @@ import pytest
 
 from bench.config import ConfigError, build_params
 from bench.records import SCHEMA_VERSION, write_record
-from bench.report import (ReportConfig, _load, accuracy_at_budget, order_fits, pareto_front, run_points,
-                          seed_summary, speedup_table, status_counts, time_to_tolerance, upper_median,
-                          write_report)
+from bench.report import (ReportConfig, _load, accuracy_at_budget, best_errors, natural_key, order_fits,
+                          pareto_front, run_points, seed_summary, speedup_table, status_counts,
+                          time_to_tolerance, upper_median, write_report)
 
 INF = math.inf
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"   # PNG specification (ISO/IEC 15948), file signature
@@ -124,6 +123,12 @@ def test_pareto_front_keeps_exactly_the_non_dominated_points():
     assert pareto_front(pts.iloc[0:0]).empty
 
 
+def test_natural_order_of_problems():
+    ids = ["sine(k=16,l=16)", "peak(alpha=1e4)", "sine(k=2,l=2)", "peak(alpha=1000.0)", "sine(k=8,l=8)"]
+    assert sorted(ids, key=natural_key) == ["peak(alpha=1000.0)", "peak(alpha=1e4)", "sine(k=2,l=2)",
+                                            "sine(k=8,l=8)", "sine(k=16,l=16)"]
+
+
 def test_upper_median_is_the_worse_middle_value():
     assert upper_median([3.0, 1.0, 2.0]) == 2.0
     assert upper_median([1.0, 2.0]) == 2.0            # even count: the worse (larger) middle value
@@ -205,6 +210,10 @@ def test_speedup_names_the_faster_side(tmp_path):
     # classical reaches 5e-3 with n=16 (4e-3) at 0.01 s, learned first at 3 s
     b = sp[(sp["problem_id"] == "sine(k=1,l=1)") & (sp["level"] == "best learned error")].iloc[0]
     assert (b["error"], b["classical_time_s"], b["learned_time_s"]) == (5e-3, 0.01, 3.0)
+    # best error per problem (unlimited budget), problems in natural order: k=1 before k=8
+    best = best_errors(recs, frame, build_params(ReportConfig, {"results": [str(tmp_path)]}))
+    assert list(best[best["solver"] == "fd5"]["error"]) == [2.5e-4, 1e-3]
+    assert list(best[best["solver"] == "pinn_x"]["error"]) == [5e-3, 5e-3]
     c = sp[(sp["problem_id"] == "sine(k=8,l=8)") & (sp["level"] == "tolerance")].iloc[0]
     assert (c["winner"], c["classical_time_s"], c["learned_time_s"]) == ("learned", 100.0, 2.0)
     assert c["speedup"] == pytest.approx(50.0, rel=1e-12)            # 100 / 2
@@ -262,6 +271,20 @@ def test_failures_are_counted_never_dropped(tmp_path):
     assert cell(tt, "fd5", "tolerance", 1e-2)["time_s"] == 0.01
     assert bool(cell(tt, "cheb", "tolerance", 1e-2)["unsupported"])
     assert run_points(recs, frame)["row"].map(lambda i: recs[i]["status"]).eq("ok").all()
+
+
+def test_eigen_records_are_judged_by_the_eigen_metric(tmp_path):
+    recs = [make_record("square_eigs", {}, "fd5", "fd", kind="eigen", total=t, config={"n": n}, dofs=n * n)
+            for n, t in ((16, 0.1), (32, 0.4))]
+    recs[0]["metrics"] = {"eig_rel_max": 3e-3, "eig_rel_1": 1e-3}
+    recs[1]["metrics"] = {"eig_rel_max": 8e-4, "eig_rel_1": 2e-4}
+    write_all(tmp_path, recs)
+    cfg = build_params(ReportConfig, {"results": [str(tmp_path)]})       # eigen_metric: eig_rel_max
+    recs, frame = _load(cfg)
+    assert list(frame["error"]) == [3e-3, 8e-4]
+    assert cell(time_to_tolerance(recs, frame, [1e-3]), "fd5", "tolerance", 1e-3)["time_s"] == 0.4
+    cfg = build_params(ReportConfig, {"results": [str(tmp_path)], "eigen_metric": "eig_rel_1"})
+    assert list(_load(cfg)[1]["error"]) == [1e-3, 2e-4]
 
 
 # ------------------------------------------------------------------------------------------------
@@ -326,7 +349,7 @@ def test_report_files_are_produced_and_well_formed(tmp_path):
     full = parse_tabulars((out / "tables.tex").read_text())
     assert len(full) == len(list((out / "tables").glob("*.tex")))
     assert "\\usepackage{booktabs}" in (out / "tables.tex").read_text()
-    status = [t for t in full if t[1][:3] == ["problem\\_id", "solver", "runs"]][0]
+    status = [t for t in full if t[1][:3] == ["problem", "method", "runs"]][0]
     fd5 = [r for r in status[2] if r[1] == "fd5"][0]
     assert fd5[2:5] == ["4", "3", "0"] and fd5[status[1].index("timeout")] == "1"
     # CSV: every table, readable, numbers intact

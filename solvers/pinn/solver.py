@@ -142,10 +142,14 @@ class PINN(Solver):
 
         if getattr(cls, "_warm", False):
             return
+        import warnings
+
         w = torch.nn.Parameter(torch.zeros(2))
         opt = torch.optim.Adam([w], lr=1e-3)
         (w * w).sum().backward()
-        opt.step()
+        with warnings.catch_warnings():   # torch's own lazy imports warn about its internals
+            warnings.simplefilter("ignore", DeprecationWarning)
+            opt.step()
         PINN._warm = True
 
     def resolution(self) -> dict:
@@ -170,6 +174,7 @@ class PINN(Solver):
         from solvers.pinn.model import Network, torch_dtype
         from solvers.pinn.train import Collocation, Schedule, train
 
+        self.preload()   # once per process, outside the timed phases (the harness did it already)
         p = self.params
         hard = p.boundary == "hard"
         with ctx.phase("setup"):
@@ -210,14 +215,20 @@ class _Evaluator:
         return g, phi
 
     def __call__(self, points) -> np.ndarray:
+        import copy
+
         import torch
 
-        pts = np.asarray(points, dtype=float).reshape(-1, 2)
+        pts = np.ascontiguousarray(np.asarray(points, dtype=float).reshape(-1, 2))
         out = np.empty(len(pts))
+        # Evaluate the trained weights in float64: the same function, rounded 1e-9 times less,
+        # and the value at a point then does not depend on which other points share the call
+        # (float32 matrix kernels round rows differently by their position in the block).
+        net = self.net if self.dtype == torch.float64 else copy.deepcopy(self.net).double()
         with torch.no_grad():
             for i in range(0, len(pts), EVAL_CHUNK):
-                x = torch.as_tensor(pts[i:i + EVAL_CHUNK], dtype=self.dtype)
-                out[i:i + EVAL_CHUNK] = self.net(x).numpy().astype(float)
+                x = torch.as_tensor(pts[i:i + EVAL_CHUNK], dtype=torch.float64)
+                out[i:i + EVAL_CHUNK] = net(x).numpy()
         if self.hard:
             g, phi = self._boundary_parts(pts)
             out = g + phi * out

@@ -1,0 +1,182 @@
+"""PINN performance: `python -m bench.perf.pinn_step [--quick] [--budget SECONDS]`.
+
+Measures, in one run on this machine (best of repeats):
+1. the Laplacian strategies of `solvers.pinn.model.Network.derivatives` (forward propagation,
+   nested torch.autograd.grad, torch.func) per Adam step, 2 500 points, 4 x 50 tanh network,
+   1 thread, float32 and float64, with their agreement (the default must be the fastest
+   correct one);
+2. one training step of the hard-boundary strong-form loss (as `pinn_hard` runs it) against a
+   plain forward + backward + Adam step of the same network on the same points (target ratio:
+   at most 3), at 1 and 2 threads, float32 and float64;
+3. time to relative L2 error 1e-3 and the best error within the training budget for the
+   `pinn_hard` preset on sin(pi x) sin(pi y), next to the classical solvers' time to the same
+   error, all through `bench.run.run_case` (forked, pinned, timed as in any sweep).
+Writes results/perf/pinn_step.json.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+POINTS = 2500
+WIDTH, DEPTH = 50, 4
+
+
+def _best_ms(fn, repeats: int, inner: int) -> float:
+    for _ in range(2):
+        fn()
+    best = float("inf")
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        for _ in range(inner):
+            fn()
+        best = min(best, (time.perf_counter() - t0) / inner)
+    return best * 1e3
+
+
+def laplacian_strategies(repeats: int) -> list[dict]:
+    import torch
+
+    from solvers.pinn.model import Network
+
+    torch.set_num_threads(1)
+    rows = []
+    for precision, dtype in (("float32", torch.float32), ("float64", torch.float64)):
+        gen = torch.Generator().manual_seed(0)
+        net = Network((0, 1, 0, 1), WIDTH, DEPTH, "tanh", 0, 1.0, dtype, gen)
+        x = torch.rand(POINTS, 2, dtype=dtype, generator=gen)
+        opt = torch.optim.Adam(net.parameters(), lr=1e-6)
+        ref = net.derivatives(x, 2, "autograd")[2].detach()
+        for method in ("forward", "autograd", "func"):
+            lap = net.derivatives(x, 2, method)[2].detach()
+
+            def step(method=method):
+                opt.zero_grad(set_to_none=True)
+                loss = torch.mean((net.derivatives(x, 2, method)[2] + 1.0) ** 2)
+                loss.backward()
+                opt.step()
+
+            rows.append({"precision": precision, "method": method,
+                         "adam_step_ms": _best_ms(step, repeats, 5),
+                         "max_rel_diff_vs_autograd": float((lap - ref).abs().max() / ref.abs().max())})
+            print(f"  laplacian {precision} {method:<9} {rows[-1]['adam_step_ms']:7.2f} ms/step  "
+                  f"max rel diff {rows[-1]['max_rel_diff_vs_autograd']:.1e}", flush=True)
+    return rows
+
+
+def step_ratio(repeats: int) -> list[dict]:
+    import torch
+
+    from bench.problems import make_problem
+    from solvers.pinn.losses import Loss
+    from solvers.pinn.model import Network
+    from solvers.pinn.train import Collocation
+
+    prob = make_problem({"name": "sine"}).public()
+    rows = []
+    for threads in (1, 2):
+        torch.set_num_threads(threads)
+        for precision, dtype in (("float32", torch.float32), ("float64", torch.float64)):
+            gen = torch.Generator().manual_seed(0)
+            net = Network(prob.domain.bbox, WIDTH, DEPTH, "tanh", 0, 1.0, dtype, gen)
+            col = Collocation(prob, POINTS, 400, "sobol", True, dtype, np.random.default_rng(0))
+            loss = Loss("residual", hard=True, laplacian="forward", area=1.0)
+            opt = torch.optim.Adam(net.parameters(), lr=1e-6)
+            x = col.batch.x
+
+            def plain():
+                opt.zero_grad(set_to_none=True)
+                torch.mean(net(x) ** 2).backward()
+                opt.step()
+
+            def pinn():
+                opt.zero_grad(set_to_none=True)
+                loss(net, col.batch, None)[0].backward()
+                opt.step()
+
+            t_plain = _best_ms(plain, repeats, 10)
+            t_pinn = _best_ms(pinn, repeats, 5)
+            rows.append({"threads": threads, "precision": precision, "plain_step_ms": t_plain,
+                         "pinn_step_ms": t_pinn, "ratio": t_pinn / t_plain})
+            print(f"  step {threads} thread(s) {precision}: plain {t_plain:6.2f} ms, pinn_hard "
+                  f"{t_pinn:6.2f} ms, ratio {t_pinn / t_plain:.2f}", flush=True)
+    torch.set_num_threads(1)
+    return rows
+
+
+def time_to_tolerance(budget: float, tol: float = 1e-3) -> dict:
+    from bench.run import Case, run_case
+
+    out = {"problem": "sine (k = l = 1)", "tolerance": tol, "train_budget_s": budget}
+    with tempfile.TemporaryDirectory() as tmp:
+        rec, _ = run_case(Case(problem={"name": "sine"}, solver={"name": "pinn_hard"}, seed=0, threads=1,
+                               budget={"time_limit": budget + 120, "train_time": budget}), tmp)
+        hist = rec["history"]
+        hit = next((h for h in hist if h.get("rel_l2", 1.0) <= tol), None)
+        out["pinn_hard"] = {
+            "status": rec["status"], "stopped": rec["info"].get("stopped"),
+            "steps": rec["cost"]["iterations"], "params": rec["cost"]["params"],
+            "final_rel_l2": rec["metrics"].get("rel_l2"),
+            "best_rel_l2_in_history": min((h["rel_l2"] for h in hist if "rel_l2" in h), default=None),
+            "time_to_tol_s": hit["time"] if hit else None,
+            "total_time_s": rec["timings"]["total"],
+            "foreign_load": rec["environment"].get("foreign_load"),
+        }
+        print(f"  pinn_hard: time to {tol:g}: {out['pinn_hard']['time_to_tol_s']} s; final rel_l2 "
+              f"{out['pinn_hard']['final_rel_l2']:.2e} after {out['pinn_hard']['total_time_s']:.1f} s "
+              f"({out['pinn_hard']['stopped']})", flush=True)
+        classical = {}
+        for name, ns in (("fst5", (8, 16, 32, 64, 128, 256)), ("fst9", (4, 8, 16, 32, 64)),
+                         ("fd9", (4, 8, 16, 32, 64)), ("cheb", (4, 6, 8, 10, 12, 16))):
+            for n in ns:
+                rec, _ = run_case(Case(problem={"name": "sine"}, solver={"name": name, "n": n}, seed=0,
+                                       threads=1, budget={"time_limit": 60}), tmp)
+                err = rec["metrics"].get("rel_l2", np.inf)
+                if err <= tol:
+                    classical[name] = {"n": n, "rel_l2": err, "time_s": rec["timings"]["total"]}
+                    print(f"  {name}: n = {n} reaches {err:.2e} in {rec['timings']['total'] * 1e3:.2f} ms",
+                          flush=True)
+                    break
+        out["classical"] = classical
+    return out
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="fewer repeats and a 30 s training budget")
+    ap.add_argument("--budget", type=float, default=None,
+                    help="training budget of the time-to-tolerance run in seconds (default 150; "
+                         "the issue's full measurement is 300)")
+    args = ap.parse_args(argv)
+    repeats = 3 if args.quick else 7
+    budget = args.budget or (30.0 if args.quick else 150.0)
+    import os
+
+    import torch
+
+    from solvers.pinn import PINN
+
+    PINN.preload()
+    out = {"machine": {"cpus": os.cpu_count(), "torch": torch.__version__,
+                       "loadavg_1min_start": os.getloadavg()[0]},
+           "network": f"{DEPTH} x {WIDTH} tanh, {POINTS} points"}
+    print("1. Laplacian strategies (1 thread)", flush=True)
+    out["laplacian"] = laplacian_strategies(repeats)
+    print("2. PINN step against plain forward + backward", flush=True)
+    out["step_ratio"] = step_ratio(repeats)
+    print(f"3. time to 1e-3 on sin(pi x) sin(pi y), training budget {budget:g} s", flush=True)
+    out["time_to_tolerance"] = time_to_tolerance(budget)
+    out["machine"]["loadavg_1min_end"] = os.getloadavg()[0]
+    path = Path("results/perf/pinn_step.json")
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(json.dumps(out, indent=1))
+    print(f"wrote {path}")
+
+
+if __name__ == "__main__":
+    main()

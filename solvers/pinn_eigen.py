@@ -1,0 +1,337 @@
+"""A neural-network eigen-solver for -Laplace(u) = lambda u, u = 0 on the boundary.
+
+Method, mode by mode (j = 1..k), each mode its own network N_j (solvers.pinn.model.Network):
+
+- hard Dirichlet condition u_j = phi N_j with the domain's normalised distance function phi
+  (Sukumar & Srivastava, CMAME 389, 2022), so every u_j vanishes on the boundary exactly;
+- loss: the Rayleigh quotient R(u) = int |grad u|^2 / int u^2 on fixed quasi-random points, the
+  variational (Deep Ritz) formulation of the lowest eigenvalue (E & Yu, "The Deep Ritz method",
+  Commun. Math. Stat. 6, 2018, sec. on eigenvalue problems);
+- higher modes by an orthogonality penalty against the modes already found (frozen):
+  R(u_j) + w R(u_j) sum_{i<j} <u_j, u_i>^2 / (|u_j|^2 |u_i|^2), the penalised variational
+  approach of W. Zhang, T. Li & C. Schuette, "Solving eigenvalue PDEs of metastable diffusion
+  processes using artificial neural networks", J. Comput. Phys. 465 (2022) [memory for the
+  details]. The factor R(u_j) (held fixed in the gradient) makes the penalty outweigh the gain
+  (lambda_j - lambda_i) sin^2(theta) of leaning towards a found mode whenever w > 1.
+- Adam, then L-BFGS with a strong-Wolfe line search, per mode;
+- finally a Rayleigh-Ritz projection onto span{u_1..u_k} with an accurate quadrature of the
+  domain (stiffness and mass matrices of the trained functions, k x k generalised eigenproblem):
+  it orders the modes, rotates bases of multiple eigenvalues, and its Ritz values bound the
+  exact eigenvalues from above up to quadrature error (min-max principle).
+
+Budget: the training time cap ``budget.train_cap`` is shared among the modes (each gets the
+remaining time divided by the modes still to train); NaN/Inf raises `Diverged`; history entries
+carry the loss and the Rayleigh quotient of the mode in training. torch is imported only inside
+`_solve` and `preload`.
+"""
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+
+from bench.config import ConfigError, one_of, positive
+from solvers.base import Diverged, Solution, Solver, Tags
+
+__all__ = ["PINNEigen", "PINNEigenParams"]
+
+# History checkpoints at training times FIRST * GROWTH^k seconds (as the PINN family's training).
+CHECKPOINT_FIRST = 0.05
+CHECKPOINT_GROWTH = 1.25
+LBFGS_CHUNK = 20
+
+
+@dataclasses.dataclass
+class PINNEigenParams:
+    """Options of the neural eigen-solver (conf/solver/pinn_eigen.yaml comments each)."""
+
+    width: int = 32
+    depth: int = 3
+    activation: str = "tanh"
+    precision: str = "float64"
+    n_interior: int = 2048
+    sampling: str = "sobol"
+    adam_steps: int = 1000        # per mode
+    lr: float = 1e-3
+    lr_decay: float = 0.1
+    lbfgs_steps: int = 300        # per mode
+    lbfgs_history: int = 50
+    patience: int = 300
+    plateau_tol: float = 1e-7
+    ortho_weight: float = 10.0
+    quad_level: int = 48          # quadrature level of the final Rayleigh-Ritz projection
+
+    def __post_init__(self):
+        from solvers.pinn.solver import ACTIVATIONS, MAX_DEPTH, MAX_POINTS, MAX_WIDTH, PRECISIONS, SAMPLINGS
+
+        positive("width", self.width, integer=True, maximum=MAX_WIDTH)
+        positive("depth", self.depth, integer=True, maximum=MAX_DEPTH)
+        one_of("activation", self.activation, ACTIVATIONS)
+        one_of("precision", self.precision, PRECISIONS)
+        positive("n_interior", self.n_interior, integer=True, maximum=MAX_POINTS)
+        one_of("sampling", self.sampling, SAMPLINGS)
+        for name in ("adam_steps", "lbfgs_steps", "patience"):
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, int) or v < 0:
+                raise ConfigError(f"`{name}` must be a non-negative integer, got {v!r}")
+        if self.adam_steps + self.lbfgs_steps == 0:
+            raise ConfigError("`adam_steps` and `lbfgs_steps` must not both be 0 (nothing to train)")
+        positive("lr", self.lr)
+        if not (0 < self.lr_decay <= 1):
+            raise ConfigError(f"`lr_decay` must lie in (0, 1], got {self.lr_decay!r}")
+        positive("lbfgs_history", self.lbfgs_history, integer=True, maximum=10_000)
+        if not self.plateau_tol >= 0:
+            raise ConfigError(f"`plateau_tol` must be non-negative, got {self.plateau_tol!r}")
+        if not self.ortho_weight > 1:
+            raise ConfigError(f"`ortho_weight` must exceed 1 (the penalty must outweigh the "
+                              f"eigenvalue gap), got {self.ortho_weight!r}")
+        positive("quad_level", self.quad_level, integer=True, maximum=1024)
+
+
+class _OutOfTime(Exception):
+    """The mode's share of the training cap is spent (raised inside the L-BFGS closure)."""
+
+
+class PINNEigen(Solver):
+    """Neural eigen-solver: Rayleigh quotient with hard Dirichlet condition, orthogonality
+    penalties for higher modes, final Rayleigh-Ritz projection (see the module docstring).
+
+    Sources: E & Yu, Commun. Math. Stat. 6 (2018) (Rayleigh-quotient / Deep Ritz eigenvalues);
+    Zhang, Li & Schuette, J. Comput. Phys. 465 (2022) (orthogonality penalties for the first k
+    eigenpairs); Sukumar & Srivastava, CMAME 389 (2022) (distance functions for exact
+    boundary conditions).
+    """
+
+    name = "pinn_eigen"
+    family = "pinn"
+    description = "neural eigen-solver: Rayleigh quotient, hard BC, orthogonality penalties, Rayleigh-Ritz"
+    reference = ("E & Yu, Commun. Math. Stat. 6 (2018); Zhang, Li & Schuette, J. Comput. Phys. 465 "
+                 "(2022); Sukumar & Srivastava, CMAME 389 (2022)")
+    Params = PINNEigenParams
+    # same seed, same thread count -> same result to rounding (a run cut by the time cap excepted)
+    tags = Tags(kinds=frozenset({"eigen"}), domains=frozenset({"rectangle", "disk", "annulus", "polygon"}),
+                deterministic=True)
+
+    @classmethod
+    def preload(cls) -> None:
+        from solvers.pinn.solver import PINN
+
+        PINN.preload()
+
+    def resolution(self) -> dict:
+        p = self.params
+        return {"width": p.width, "depth": p.depth, "n_interior": p.n_interior}
+
+    def memory_estimate_mb(self) -> float:
+        p = self.params
+        size = 8 if p.precision == "float64" else 4
+        graph = 8 * 3 * p.n_interior * p.width * p.depth * size
+        lbfgs = 2 * p.lbfgs_history * (p.width * p.width * p.depth) * size
+        return (graph + lbfgs) / 2 ** 20
+
+    def _solve(self, problem, budget, ctx):
+        import torch
+
+        from solvers.pinn.model import Network, torch_dtype
+        from solvers.pinn.sampling import fd_derivatives, interior_points
+
+        p = self.params
+        k = int(problem.n_eigs)
+        d = problem.domain
+        with ctx.phase("setup"):
+            dtype = torch_dtype(p.precision)
+            gen = torch.Generator().manual_seed(ctx.seed)
+            rng = np.random.default_rng(np.random.SeedSequence([ctx.seed, 4242]))
+            x = interior_points(d, p.n_interior, p.sampling, rng)
+            phi, gphi, _ = fd_derivatives(lambda q: np.asarray(d.phi(q), dtype=float), x, d)
+            X = torch.as_tensor(x, dtype=dtype)
+            PHI = torch.as_tensor(phi, dtype=dtype)
+            GPHI = torch.as_tensor(gphi, dtype=dtype)
+            nets = [Network(d.bbox, p.width, p.depth, p.activation, 0, 1.0, dtype, gen) for _ in range(k)]
+        t0 = ctx.elapsed()
+        cap = budget.train_cap
+        found: list = []          # values of the finished modes at the collocation points (frozen)
+        stats = {"adam_steps": 0, "lbfgs_iterations": 0, "stopped": []}
+        step = 0
+        with ctx.phase("train"):
+            for j, net in enumerate(nets):
+                share = max(0.0, cap - (ctx.elapsed() - t0)) / (k - j)
+                step, reason = self._train_mode(net, j, X, PHI, GPHI, found, share, ctx, step, stats)
+                stats["stopped"].append(reason)
+                with torch.no_grad():
+                    found.append((PHI * net(X)).detach())
+        with ctx.phase("solve"):
+            lam, C, fields = _rayleigh_ritz(nets, d, p.quad_level)
+        if not np.all(np.isfinite(lam)):
+            raise Diverged("Rayleigh-Ritz eigenvalues are not finite", step)
+
+        def modes(points):
+            return fields(np.asarray(points, dtype=float)) @ C
+
+        from solvers.eigen import eigen_solution
+
+        info = {"params": int(sum(n.n_parameters for n in nets)), "iterations": step, "dofs": None,
+                "adam_steps": stats["adam_steps"], "lbfgs_iterations": stats["lbfgs_iterations"],
+                "stopped": stats["stopped"], "precision": p.precision}
+        return eigen_solution(lam, modes, info)
+
+    # -- one mode ---------------------------------------------------------------------------------
+    def _train_mode(self, net, j, X, PHI, GPHI, found, share, ctx, step, stats):
+        """Adam then L-BFGS on mode j within `share` seconds; returns (global step, stop reason)."""
+        import torch
+
+        p = self.params
+        t_start = ctx.elapsed()
+        next_mark = [CHECKPOINT_FIRST]
+        w = p.ortho_weight
+
+        def objective():
+            u, g, _ = net.derivatives(X, order=1)
+            v = PHI * u
+            gv = GPHI * u[:, None] + PHI[:, None] * g
+            den = (v * v).mean()
+            R = (gv * gv).sum(1).mean() / den
+            pen = torch.zeros((), dtype=v.dtype)
+            for f in found:
+                pen = pen + (v * f).mean() ** 2 / (den * (f * f).mean())
+            return R + w * R.detach() * pen, R, pen
+
+        def mark(s, total, R, pen, phase, force=False):
+            tau = ctx.elapsed() - t_start
+            if force or tau >= next_mark[0]:
+                ctx.checkpoint(s, {"loss": float(total), "rayleigh": float(R), "ortho": float(pen)},
+                               mode=j + 1, phase=phase)
+                while next_mark[0] <= tau:
+                    next_mark[0] *= CHECKPOINT_GROWTH
+
+        def guard(value, s, phase):
+            if not math.isfinite(value):
+                raise Diverged(f"loss became {value} at step {s} (mode {j + 1}, {phase})", s)
+
+        reason = "completed"
+        best, best_step = math.inf, 0
+        if p.adam_steps:
+            opt = torch.optim.Adam(net.parameters(), lr=p.lr)
+            for i in range(p.adam_steps):
+                if ctx.elapsed() - t_start >= share:
+                    reason = "time_cap"
+                    break
+                for group in opt.param_groups:
+                    group["lr"] = p.lr * p.lr_decay ** (i / p.adam_steps)
+                opt.zero_grad(set_to_none=True)
+                total, R, pen = objective()
+                value = total.item()
+                guard(value, step, "adam")
+                mark(step, value, R.item(), pen.item(), "adam", force=i == 0)
+                total.backward()
+                opt.step()
+                step += 1
+                stats["adam_steps"] += 1
+                if value < best - p.plateau_tol * abs(best):
+                    best, best_step = value, i
+                elif p.patience and i - best_step >= p.patience:
+                    reason = "plateau"
+                    break
+        if p.lbfgs_steps and reason != "time_cap":
+            step, reason = self._lbfgs(net, objective, guard, mark, ctx, t_start, share, step, stats)
+        with torch.no_grad():
+            total, R, pen = objective()
+        mark(step, total.item(), R.item(), pen.item(), "final", force=True)
+        return step, reason
+
+    def _lbfgs(self, net, objective, guard, mark, ctx, t_start, share, step, stats):
+        import torch
+        from torch.nn.utils import parameters_to_vector, vector_to_parameters
+
+        p = self.params
+        params = list(net.parameters())
+        fine = params[0].dtype == torch.float64
+        opt = torch.optim.LBFGS(params, lr=1.0, max_iter=LBFGS_CHUNK, history_size=p.lbfgs_history,
+                                line_search_fn="strong_wolfe", tolerance_grad=1e-12 if fine else 1e-9,
+                                tolerance_change=1e-15 if fine else 1e-10)
+        best = {"value": math.inf, "vec": None}
+        last = {}
+
+        def closure():
+            opt.zero_grad(set_to_none=False)
+            total, R, pen = objective()
+            value = total.item()
+            guard(value, step + done, "lbfgs")
+            total.backward()
+            last.update(total=value, R=R.item(), pen=pen.item())
+            if value < best["value"]:
+                best.update(value=value, vec=parameters_to_vector(params).detach().clone())
+            if ctx.elapsed() - t_start >= share:
+                raise _OutOfTime
+            return total
+
+        done = 0
+        reason = "completed"
+        while done < p.lbfgs_steps:
+            chunk = min(LBFGS_CHUNK, p.lbfgs_steps - done)
+            for group in opt.param_groups:
+                group["max_iter"] = chunk
+            n0 = opt.state[params[0]].get("n_iter", 0)
+            try:
+                opt.step(closure)
+            except _OutOfTime:
+                done += opt.state[params[0]].get("n_iter", 0) - n0
+                with torch.no_grad():
+                    vector_to_parameters(best["vec"], params)
+                reason = "time_cap"
+                break
+            n = opt.state[params[0]].get("n_iter", 0) - n0
+            done += n
+            mark(step + done, last["total"], last["R"], last["pen"], "lbfgs")
+            if n < chunk:
+                reason = "converged"
+                break
+        stats["lbfgs_iterations"] += done
+        return step + done, reason
+
+
+def _rayleigh_ritz(nets, domain, level: int):
+    """Ritz values and coefficients on span{phi N_j}, quadrature of the domain at `level`.
+
+    Returns (ascending eigenvalues, coefficient matrix C (k, k) with unit-L2 Ritz vectors,
+    fields(points) -> (m, k) values of the trained functions phi N_j in float64).
+    """
+    import copy
+
+    import scipy.linalg
+    import torch
+
+    from solvers.pinn.sampling import fd_derivatives
+
+    nets64 = [copy.deepcopy(n).double() for n in nets]
+    pts, w = domain.quadrature(level)
+    inside = domain.distance(pts) > 0
+    pts, w = pts[inside], w[inside]
+    phi, gphi, _ = fd_derivatives(lambda q: np.asarray(domain.phi(q), dtype=float), pts, domain)
+    X = torch.as_tensor(pts, dtype=torch.float64)
+    V, G = [], []
+    for net in nets64:
+        u, g, _ = net.derivatives(X, order=1)
+        u, g = u.detach().numpy(), g.detach().numpy()
+        V.append(phi * u)
+        G.append(gphi * u[:, None] + phi[:, None] * g)
+    V = np.column_stack(V)
+    G = np.stack(G, axis=1)                                   # (m, k, 2)
+    A = np.einsum("m,mid,mjd->ij", w, G, G)
+    B = np.einsum("m,mi,mj->ij", w, V, V)
+    lam, C = scipy.linalg.eigh(A, B)
+    # sign: largest value of each Ritz vector on the quadrature points positive (deterministic)
+    R = V @ C
+    s = np.sign(R[np.argmax(np.abs(R), axis=0), np.arange(R.shape[1])])
+    s[s == 0] = 1.0
+    C = C * s
+
+    def fields(points):
+        q = np.asarray(points, dtype=float).reshape(-1, 2)
+        ph = np.asarray(domain.phi(q), dtype=float)
+        with torch.no_grad():
+            Xq = torch.as_tensor(q, dtype=torch.float64)
+            return np.column_stack([ph * n(Xq).numpy() for n in nets64])
+
+    return lam, C, fields
