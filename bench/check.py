@@ -415,9 +415,9 @@ Other options: conf/check/default.yaml.
 
 
 def _plan(argv: list[str]):
-    """Parse arguments, compose the suite's cases and validate them; no case runs here.
+    """Parse arguments, compose the suite's cases and locate their records; no case runs here.
 
-    Returns (args, suite name, CheckConfig, results_dir, [(key, prepared)]).
+    Returns (args, suite name, CheckConfig, results_dir, [(case, record path)]).
     """
     from hydra import initialize_config_dir
     from hydra.core.global_hydra import GlobalHydra
@@ -425,7 +425,6 @@ def _plan(argv: list[str]):
 
     from bench import cli
     from bench.config import build_params
-    from bench.run import prepare
     from bench.suites import expand_suite
 
     args = cli.Args(argv)
@@ -449,21 +448,24 @@ def _plan(argv: list[str]):
             raise ConfigError(f"`suite` {name!r} has no cases")
         rest = cli._strip(base, ("suite", "case_index"))
         planned = []
-        results_dir = None
+        results_dir = OmegaConf.select(cfg, "results_dir") or "results"
         for ov in cases:
             case, opts = cli.case_from_cfg(cli.compose_case(ov + rest))
             case.suite = name
-            prep = prepare(case, opts.results_dir)
             results_dir = opts.results_dir
-            planned.append((key_of_prepared(prep), prep))
-    seen: dict[str, int] = {}
-    for key, _ in planned:
-        seen[key] = seen.get(key, 0) + 1
-    dup = sorted(k for k, n in seen.items() if n > 1)
-    if dup:
-        raise ConfigError(f"`suite` {name!r}: {seen[dup[0]]} cases share the key {dup[0]!r}; make them differ "
-                          "in problem, solver options, resolution or seed")
+            planned.append((case, _locate(case, results_dir)))
     return args, name, ccfg, results_dir, planned
+
+
+def _locate(case, results_dir) -> Path:
+    """The record file of a case, named as `bench.run.prepare` names it, without building the
+    problem (a manufactured problem runs sympy when built: seconds per case)."""
+    from bench.records import config_hash, record_path
+    from bench.run import make_solver
+
+    solver = make_solver(case.solver)
+    label = case.problem_label or case.problem.get("name")
+    return record_path(results_dir, label, solver.name, config_hash(case.identity()))
 
 
 def _maybe_run(args, ccfg: CheckConfig, name: str) -> None:
@@ -483,23 +485,31 @@ def _maybe_run(args, ccfg: CheckConfig, name: str) -> None:
 
 
 def _collect(planned):
-    """(records found, keys of cases without a readable record)."""
+    """(records found, cases without a readable record)."""
     import warnings
 
     from bench.records import RecordWarning, read_record
 
-    records, not_run = [], set()
-    for key, prep in planned:
+    records, missing = [], []
+    for case, path in planned:
         rec = None
-        if prep.path.exists():
+        if path.exists():
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", RecordWarning)
-                rec = read_record(prep.path)
+                rec = read_record(path)
         if rec is None:
-            not_run.add(key)
+            missing.append(case)
         else:
             records.append(rec)
-    return records, not_run
+    return records, missing
+
+
+def _key(case, results_dir) -> str:
+    """The key of a case without a record: needs the problem's knobs, so the case is built (and
+    validated) in full."""
+    from bench.run import prepare
+
+    return key_of_prepared(prepare(case, results_dir))
 
 
 def _command_line(cmd: str, args) -> str:
@@ -518,9 +528,9 @@ def cmd_check(argv: list[str]) -> int:
     base_path = ccfg.baseline_path(name)
     base_doc = read_baseline(base_path, suite=name)
     _maybe_run(args, ccfg, name)
-    records, not_run = _collect(planned)
+    records, missing = _collect(planned)
     cur_doc = summarise(records, name)
-    result = compare(base_doc, cur_doc, ccfg, not_run)
+    result = compare(base_doc, cur_doc, ccfg, {_key(c, results_dir) for c in missing})
     out_dir = Path(ccfg.out_dir) if ccfg.out_dir else Path(results_dir) / "check" / name
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
@@ -543,10 +553,10 @@ def cmd_baseline(argv: list[str]) -> int:
         return 0
     args, name, ccfg, results_dir, planned = _plan(argv)
     _maybe_run(args, ccfg, name)
-    records, not_run = _collect(planned)
-    if not_run:
-        cli.fail(f"`suite` {name!r}: {len(not_run)} of {len(planned)} cases have no record under "
-                 f"{results_dir}/runs (e.g. {sorted(not_run)[0]!r}); run `lapbench run suite={name} "
+    records, missing = _collect(planned)
+    if missing:
+        cli.fail(f"`suite` {name!r}: {len(missing)} of {len(planned)} cases have no record under "
+                 f"{results_dir}/runs (e.g. {_key(missing[0], results_dir)!r}); run `lapbench run suite={name} "
                  f"results_dir={results_dir}` first, or add check.run=true")
     doc = summarise(records, name, command=_command_line("baseline", args))
     path = write_baseline(ccfg.baseline_path(name), doc)

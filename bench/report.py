@@ -801,10 +801,15 @@ def latex_tabular(display) -> str:
     return "\n".join(lines) + "\n"
 
 
+def _inline_tex(text: str) -> str:
+    """Escape text for LaTeX, rendering Markdown's `code` spans in typewriter type."""
+    return re.sub(r"`([^`]+)`", r"\\texttt{\1}", tex_escape(text))
+
+
 def latex_table(t: Table) -> str:
     """A floating table with caption and label, ready to \\input into a paper."""
     return ("\\begin{table}[htbp]\n\\centering\n\\small\n" + latex_tabular(t.display)
-            + f"\\caption{{{tex_escape(t.title)}. {tex_escape(t.caption)}}}\n"
+            + f"\\caption{{{tex_escape(t.title)}. {_inline_tex(t.caption)}}}\n"
             + f"\\label{{tab:{_slug(t.key)}}}\n\\end{{table}}\n")
 
 
@@ -821,8 +826,13 @@ def html_table(t: Table) -> str:
     head = "".join(f"<th>{html.escape(str(c))}</th>" for c in t.display.columns)
     body = "".join("<tr>" + "".join(f"<td>{html.escape(_fmt(r[c]))}</td>" for c in t.display.columns) + "</tr>"
                    for _, r in t.display.iterrows())
-    return (f"<table><caption>{html.escape(t.caption)}</caption><thead><tr>{head}</tr></thead>"
+    return (f"<table><caption>{_inline_html(t.caption)}</caption><thead><tr>{head}</tr></thead>"
             f"<tbody>{body}</tbody></table>\n")
+
+
+def _inline_html(text: str) -> str:
+    """Escape text for HTML, rendering Markdown's `code` spans as <code>."""
+    return re.sub(r"`([^`]+)`", r"<code>\1</code>", html.escape(text))
 
 
 def _data_uri(path: Path) -> str:
@@ -978,7 +988,7 @@ def _html(title, cfg, recs, tables, figs, out: Path, csv_files) -> str:
              f"<p>{html.escape(_filters_text(cfg, recs))}</p>"]
     if recs:
         parts.append(f"<p>{html.escape(_environment_text(recs))}</p>")
-    parts.append("<h2>How to read this report</h2><ul>" + "".join(f"<li>{html.escape(t)}</li>"
+    parts.append("<h2>How to read this report</h2><ul>" + "".join(f"<li>{_inline_html(t)}</li>"
                                                                    for t in _rules_text(cfg)) + "</ul>")
     if not recs:
         parts.append("<p>No records matched; nothing to compare.</p>")
@@ -993,7 +1003,7 @@ def _html(title, cfg, recs, tables, figs, out: Path, csv_files) -> str:
         for f in fs:
             src = f.paths.get("png") or f.paths.get("svg")
             parts.append(f"<figure><img alt=\"{html.escape(f.title)}\" src=\"{_data_uri(src)}\">"
-                         f"<figcaption><b>{html.escape(f.title)}.</b> {html.escape(f.caption)}</figcaption>"
+                         f"<figcaption><b>{html.escape(f.title)}.</b> {_inline_html(f.caption)}</figcaption>"
                          "</figure>")
     parts.append("</body></html>\n")
     return "\n".join(parts)

@@ -328,7 +328,7 @@ def _rayleigh_ritz(nets, domain, level: int):
     C = C * s
 
     def fields(points):
-        q = np.asarray(points, dtype=float).reshape(-1, 2)
+        q = np.ascontiguousarray(np.asarray(points, dtype=float).reshape(-1, 2))
         ph = np.asarray(domain.phi(q), dtype=float)
         with torch.no_grad():
             Xq = torch.as_tensor(q, dtype=torch.float64)

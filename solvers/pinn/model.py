@@ -19,6 +19,7 @@ This module imports torch at import time; ``solvers.pinn`` imports it only insid
 from __future__ import annotations
 
 import math
+import warnings
 
 import torch
 from torch import nn
@@ -198,5 +199,7 @@ class Network(nn.Module):
         grad = vmap(jacrev(single))(x)
         if order == 1:
             return u, grad, None
-        H = vmap(hessian(single))(x)
+        with warnings.catch_warnings():   # torch's forward-mode decompositions warn about torch.jit
+            warnings.simplefilter("ignore", DeprecationWarning)
+            H = vmap(hessian(single))(x)
         return u, grad, H.diagonal(dim1=-2, dim2=-1).sum(-1)
