@@ -143,10 +143,14 @@ def entry_from_record(rec: dict) -> tuple[str, dict]:
     solver = rec["solver"]
     res = solver.get("resolution") or {}
     options = solver_options(solver.get("name", ""), solver.get("config") or {}, res)
-    errors = {}
+    # float metrics are errors (compared with a tolerance); integer ones are counts such as the
+    # number of eigenvalues delivered (compared exactly); lists are per-mode detail (skipped)
+    errors, counts = {}, {}
     for k, v in sorted((rec.get("metrics") or {}).items()):
-        if isinstance(v, (int, float)) and not isinstance(v, bool):
+        if isinstance(v, float):
             errors[k] = _round(v, ERROR_DIGITS)
+        elif isinstance(v, int) and not isinstance(v, bool):
+            counts[k] = v
     total = (rec.get("timings") or {}).get("total")
     cal = (rec.get("environment") or {}).get("calibration_s")
     ok_time = rec.get("status") == "ok" and isinstance(total, (int, float))
@@ -161,6 +165,7 @@ def entry_from_record(rec: dict) -> tuple[str, dict]:
         "status": rec.get("status", "failed"),
         "reason": str(rec.get("reason") or "")[:REASON_CHARS],
         "errors": errors,
+        "counts": counts,
         "threads": rec.get("threads"),
         "time_s": _round(total, TIME_DIGITS) if ok_time else None,
         "time_norm": _round(total / cal, TIME_DIGITS) if ok_time and cal else None,
@@ -325,6 +330,9 @@ def read_baseline(path: str | Path, suite: str | None = None) -> dict:
         for field, tp in _ENTRY_FIELDS.items():
             if not isinstance(entry.get(field), tp) or (tp is int and isinstance(entry.get(field), bool)):
                 raise _bad(path, f"case {key!r}: field {field!r} is missing or not {tp.__name__}")
+        if not isinstance(entry.setdefault("counts", {}), dict) or any(
+                isinstance(v, bool) or not isinstance(v, int) for v in entry["counts"].values()):
+            raise _bad(path, f"case {key!r}: field 'counts' is not a mapping of integers")
         try:
             entry["errors"] = {k: _number(v) for k, v in entry["errors"].items()}
             for field in ("time_s", "time_norm"):

@@ -3,8 +3,9 @@
 Rules (options in conf/check/default.yaml, overridable as ``check.<key>=...``):
 
 - Deterministic solvers, per case: a status change from ``ok`` is a regression; each error
-  may grow to at most ``error_factor * max(baseline, error_floor)`` (the floor sits near
-  rounding level, where cross-machine differences are noise, not regressions).
+  (a float metric) may grow to at most ``error_factor * max(baseline, error_floor)`` (the floor
+  sits near rounding level, where cross-machine differences are noise, not regressions); an
+  integer metric (a count, such as the number of eigenvalues delivered) may not change.
 - Stochastic solvers and the families in ``median_families`` (PINNs: reproducible for a fixed
   seed on one machine, but a long float32 training amplifies rounding differences between
   machines), per group of seeds: the median error over the seeds that finished ``ok`` may grow
@@ -16,6 +17,9 @@ Rules (options in conf/check/default.yaml, overridable as ``check.<key>=...``):
   ``off``.
 - Baseline cases without a record are listed as missing (an error unless ``missing=warn``);
   cases without a baseline entry are listed as new.
+
+A baseline whose times were normalised by another calibration kernel is not time-compared (a
+note; with ``runtime=error`` it is an incompatible baseline, exit 2).
 
 Outputs: a table on the terminal, ``summary.md`` and ``junit.xml`` under
 ``<results_dir>/check/<suite>/``. Exit codes: 0 clean, 1 regression, 2 usage error or an
@@ -163,6 +167,18 @@ def _compare_errors(key, solver, base: dict, cur: dict, factor: float, cfg: Chec
     return out
 
 
+def _compare_counts(key, solver, base: dict, cur: dict, cfg: CheckConfig) -> list[Finding]:
+    """Integer metrics (e.g. the number of eigenvalues delivered) must not change."""
+    out = []
+    for m in sorted(base) if cfg.metrics is None else [m for m in cfg.metrics if m in base]:
+        b, c = base[m], cur.get(m)
+        if c != b:
+            out.append(Finding(key, m, "regression", b, c, None, f"== {b}", f"{m} changed: {b} -> {c}", solver))
+        else:
+            out.append(Finding(key, m, "ok", b, c, None, f"== {b}", "", solver))
+    return out
+
+
 def _compare_time(key, solver, b, c, cfg: CheckConfig, label: str = "") -> list[Finding]:
     if cfg.runtime == "off" or not _finite(b) or not _finite(c):
         return []
@@ -193,6 +209,7 @@ def _compare_case(key, b: dict, c: dict, cfg: CheckConfig, timing: bool) -> list
     if cs != "ok":
         return [Finding(key, "status", "ok", bs, cs, None, "", "", solver)]
     out = _compare_errors(key, solver, b["errors"], c["errors"], cfg.error_factor, cfg)
+    out += _compare_counts(key, solver, b.get("counts") or {}, c.get("counts") or {}, cfg)
     if timing and b.get("threads") == c.get("threads"):
         out += _compare_time(key, solver, b.get("time_norm"), c.get("time_norm"), cfg)
     return out
@@ -246,6 +263,10 @@ def compare(base_doc: dict, cur_doc: dict, cfg: CheckConfig, not_run: set[str] |
     ck = cur_doc["provenance"].get("calibration_kernel")
     timing = cfg.runtime != "off"
     if timing and bk != ck and cur:
+        if cfg.runtime == "error":
+            raise ConfigError(f"`check.baseline` times were normalised by calibration kernel {bk!r}, this run's "
+                              f"by {ck!r}: they cannot be compared; regenerate the baseline or set "
+                              "check.runtime=warn")
         timing = False
         notes.append(f"runtime not compared: the baseline was calibrated with kernel {bk!r}, "
                      f"this run with {ck!r}; regenerate the baseline")

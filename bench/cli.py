@@ -394,11 +394,13 @@ def job(cfg) -> None:
     prep = prepare(case, opts.results_dir)
     rec, skipped = execute(prep, force=opts.force, cores=_worker_share(hc))
     n = (index + 1) if index is not None else (hc.job.num + 1 if hc.mode.name == "MULTIRUN" else 1)
-    err = rec.get("metrics", {}).get("rel_l2")
+    # eigen problems are judged by the worst relative eigenvalue error (bench/eigen_metrics.py)
+    ename = "eig_rel_max" if rec["problem"].get("kind") == "eigen" else "rel_l2"
+    err = rec.get("metrics", {}).get(ename)
     t = rec.get("timings", {}).get("total")
     line = (f"[{n}{'/' + str(total) if total else ''}] {rec['problem']['id']} {rec['solver']['name']} "
             f"{rec['solver']['resolution_label']} seed={rec['seed']}: {rec['status']}"
-            f"{'' if err is None else f' rel_l2={err:.3e}'}{'' if t is None else f' time={t:.3g}s'}"
+            f"{'' if err is None else f' {ename}={err:.3e}'}{'' if t is None else f' time={t:.3g}s'}"
             f"{' (record exists, skipped)' if skipped else ''}"
             f"{'' if rec['status'] == 'ok' else ' - ' + str(rec.get('reason', ''))[:200]}")
     _progress_line(line, total)

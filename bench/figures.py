@@ -67,7 +67,8 @@ def _style(cfg):
     matplotlib.use("Agg")
     rc = {**sns.axes_style("ticks"), **sns.plotting_context("paper", font_scale=1.25 * cfg.figures.font_scale)}
     rc.update({"axes.grid": True, "grid.color": "#e3e3e3", "grid.linewidth": 0.6, "svg.hashsalt": "lapbench",
-               "legend.frameon": False, "figure.dpi": 100, "savefig.bbox": "tight"})
+               "legend.frameon": False, "figure.dpi": 100,
+               "svg.fonttype": "none"})   # SVG text stays text: smaller, editable in a paper
     return rc
 
 
@@ -120,10 +121,23 @@ def _staircase(ax, front, **kw):
     ax.set_xlim(x0, x1)
 
 
+_SUPERSCRIPT = str.maketrans("-0123456789", "\u207b\u2070\u00b9\u00b2\u00b3\u2074\u2075\u2076\u2077\u2078\u2079")
+
+
+def _decade_label(v, _pos=None) -> str:
+    """10 to a power in Unicode superscripts: no mathtext parsing (which dominated the run time)."""
+    if v <= 0:
+        return ""
+    k = math.log10(v)
+    if abs(k - round(k)) > 1e-9:
+        return ""
+    return "10" + str(int(round(k))).translate(_SUPERSCRIPT)
+
+
 def _loglog(ax):
     """Log axes labelled at whole decades only; a range with fewer than two decade ticks is widened
     to whole decades, so that every axis carries at least two labels and minor labels never crowd."""
-    from matplotlib.ticker import LogLocator, NullFormatter
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter, NullLocator
 
     ax.set_xscale("log")
     ax.set_yscale("log")
@@ -134,7 +148,12 @@ def _loglog(ax):
             if math.floor(b) - math.ceil(a) + 1 < 2:
                 set_(10.0 ** math.floor(a), 10.0 ** max(math.ceil(b), math.floor(a) + 1))
         axis.set_major_locator(LogLocator(base=10, numticks=12))
-        axis.set_minor_locator(LogLocator(base=10, subs=np.arange(2, 10) * 0.1, numticks=12))
+        axis.set_major_formatter(FuncFormatter(_decade_label))
+        lo, hi = get()
+        if lo > 0 and hi > lo and math.log10(hi / lo) <= 6:
+            axis.set_minor_locator(LogLocator(base=10, subs=np.arange(2, 10) * 0.1, numticks=12))
+        else:   # minor ticks over many decades are clutter, and slow to lay out
+            axis.set_minor_locator(NullLocator())
         axis.set_minor_formatter(NullFormatter())
 
 
@@ -404,6 +423,9 @@ def fig_overview(recs, frame, pts, cfg, folder) -> Figure | None:
         plt.close(fig)
         return None
     ax.set_yscale("log")
+    from matplotlib.ticker import FuncFormatter
+
+    ax.yaxis.set_major_formatter(FuncFormatter(_decade_label))
     ax.set_xticks([pos[p] for p in problems], problems, rotation=30, ha="right", fontsize="small")
     ax.set_xlabel("problem (knobs in brackets)")
     ax.set_ylabel(_error_label(cfg))

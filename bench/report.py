@@ -317,32 +317,55 @@ def _by_problem(df):
 
 
 def _run_level(frame, points, value_fn):
-    """value_fn(points of one run) -> float per record (inf without points), for every record."""
-    by_row = {row: g for row, g in points.groupby("row")} if len(points) else {}
-    return {i: (value_fn(by_row[i]) if i in by_row else math.inf) for i in frame.index}
+    """value_fn(times, errors) -> float per record of `frame` (inf for records without points)."""
+    by_row = {}
+    if len(points):
+        rows = points["row"].to_numpy()
+        order = np.argsort(rows, kind="stable")
+        rows = rows[order]
+        t = points["time"].to_numpy(float)[order]
+        e = points["error"].to_numpy(float)[order]
+        uniq, start = np.unique(rows, return_index=True)
+        stop = np.append(start[1:], len(rows))
+        by_row = {int(r): (t[a:b], e[a:b]) for r, a, b in zip(uniq, start, stop)}
+    return {i: (value_fn(*by_row[i]) if i in by_row else math.inf) for i in frame.index}
+
+
+def _config_groups(frame) -> list:
+    """[(problem_id, solver, family, statuses, {config_key: (label, [row, ...])}), ...] sorted."""
+    groups: dict = {}
+    cols = zip(frame.index, frame["problem_id"], frame["solver"], frame["family"], frame["status"],
+               frame["config_key"], frame["label"])
+    for i, pid, solver, fam, status, ck, label in cols:
+        g = groups.setdefault((pid, solver), [fam, set(), {}])
+        g[1].add(status)
+        g[2].setdefault(ck, (label, []))[1].append(i)
+    return [(pid, solver, fam, st, cfgs) for (pid, solver), (fam, st, cfgs) in sorted(groups.items())]
 
 
 def _best_configs(frame, per_run: dict):
-    """Aggregate runs -> configurations (upper median over seeds) -> method (best configuration).
+    """Aggregate runs -> configurations (upper median over seeds) -> method (best configuration;
+    ties go to the configuration whose label sorts first).
 
-    Returns rows (problem_id, solver, family, value, label, seeds_at, seeds, mem_mb, all_unsupported)."""
+    Returns rows (problem_id, solver, family, value, label, seeds_at, seeds, mem_mb,
+    all_unsupported)."""
+    mem = frame["mem_mb"] if "mem_mb" in frame else None
     out = []
-    for (pid, solver), g in frame.groupby(["problem_id", "solver"], sort=True):
+    for pid, solver, fam, statuses, cfgs in _config_groups(frame):
         best = None
-        for ck, c in g.groupby("config_key", sort=True):
-            vals = [per_run[i] for i in c.index]
+        for ck in sorted(cfgs):
+            label, rows = cfgs[ck]
+            vals = [per_run[i] for i in rows]
             agg = upper_median(vals)
-            cand = (agg, c["label"].iloc[0], ck, c, vals)
-            if best is None or (agg, cand[1]) < (best[0], best[1]):
-                best = cand
-        agg, label, _, c, vals = best
-        statuses = set(g["status"])
-        rss = c.loc[[i for i in c.index if per_run[i] <= agg], "mem_mb"] if math.isfinite(agg) else []
-        out.append({"problem_id": pid, "solver": solver, "family": g["family"].iloc[0],
-                    "value": agg, "label": label if math.isfinite(agg) else "",
-                    "seeds_at": int(sum(v <= agg for v in vals)) if math.isfinite(agg) else 0,
-                    "seeds": len(vals), "mem_mb": float(np.nanmax(rss.astype(float)))
-                    if len(rss) and rss.notna().any() else float("nan"),
+            if best is None or (agg, label) < (best[0], best[1]):
+                best = (agg, label, rows, vals)
+        agg, label, rows, vals = best
+        reached = math.isfinite(agg)
+        rss = [mem[i] for i, v in zip(rows, vals) if v <= agg] if reached and mem is not None else []
+        rss = [float(x) for x in rss if _finite(x)]
+        out.append({"problem_id": pid, "solver": solver, "family": fam, "value": agg,
+                    "label": label if reached else "", "seeds_at": sum(v <= agg for v in vals) if reached else 0,
+                    "seeds": len(vals), "mem_mb": max(rss) if rss else float("nan"),
                     "all_unsupported": statuses == {"unsupported"}})
     return out
 
@@ -356,8 +379,8 @@ def time_to_tolerance(recs, frame, tolerances, metric: str = "rel_l2", points=No
     pts = run_points(recs, frame, metric) if points is None else points
     rows = []
     for tol in tolerances:
-        def first_at_or_below(g, tol=tol):
-            hit = g.loc[g["error"] <= tol, "time"]
+        def first_at_or_below(t, e, tol=tol):
+            hit = t[e <= tol]
             return float(hit.min()) if len(hit) else math.inf
 
         per_run = _run_level(frame, pts, first_at_or_below)
@@ -379,9 +402,9 @@ def accuracy_at_budget(recs, frame, budgets, metric: str = "rel_l2", points=None
     pts = run_points(recs, frame, metric) if points is None else points
     rows = []
     for B in budgets:
-        def best_within(g, B=B):
-            e = g.loc[g["time"] <= B, "error"]
-            return float(e.min()) if len(e) else math.inf
+        def best_within(t, e, B=B):
+            within = e[t <= B]
+            return float(within.min()) if len(within) else math.inf
 
         per_run = _run_level(frame, pts, best_within)
         for b in _best_configs(frame, per_run):

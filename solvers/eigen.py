@@ -28,9 +28,9 @@ import numpy as np
 import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 
-from solvers.base import Solution, Unsupported
+from solvers.base import Solution
 
-__all__ = ["eigsh_lowest", "grid_eigen", "masked_grid_eigen", "cheb_eigen", "disk_eigen",
+__all__ = ["eigsh_lowest", "grid_eigen", "masked_eigen", "cheb_eigen", "disk_eigen",
            "fem_eigen", "fem_eigen_solution", "eigen_solution", "DRIFT_TOL"]
 
 # Boyd's drift test: an eigenvalue is trusted when it moves by less than this (relative) between
@@ -38,13 +38,6 @@ __all__ = ["eigsh_lowest", "grid_eigen", "masked_grid_eigen", "cheb_eigen", "dis
 # O(1); 1e-3 drops them while keeping the coarse resolutions of an error-versus-cost sweep. The
 # finer degree's values (the more accurate ones) are reported.
 DRIFT_TOL = 1e-3
-
-
-def _wanted(problem) -> int:
-    k = int(getattr(problem, "n_eigs", 0) or 0)
-    if k < 1:
-        raise Unsupported("eigen problem without a number of eigenvalues (`problem.k`)")
-    return k
 
 
 def _sign_fix(V: np.ndarray) -> np.ndarray:
@@ -130,23 +123,72 @@ def grid_eigen(grid, compact: bool, k: int, info: dict) -> Solution:
                           first_values=V[:, 0])
 
 
-def masked_grid_eigen(A: sps.spmatrix, k: int, interior_points: np.ndarray, interpolant, h2: float,
-                      info: dict) -> Solution:
-    """Eigenpairs of a finite-difference matrix on the unknowns of a masked (non-rectangular) grid.
+def masked_eigen(problem, n: int, k: int, info: dict) -> Solution:
+    """Shortley-Weller 5-point eigenpairs on a masked grid over a non-rectangular domain.
 
-    `interpolant(values) -> callable(points)` turns nodal values of the unknowns into a function;
-    it is supplied by the grid family so that its boundary treatment is reused unchanged.
+    The operator is the one `solvers.masked` uses for Poisson problems (arms shortened to the
+    boundary crossing; Shortley & Weller, J. Appl. Phys. 9, 1938) with zero boundary values. It is
+    symmetric when no arm is cut (polygons with grid-aligned edges, such as the L-shape at even n)
+    and then solved by the symmetric Lanczos path; otherwise ARPACK's non-symmetric Arnoldi in
+    shift-invert mode (Lehoucq, Sorensen & Yang 1998) gives the eigenvalues nearest 0, whose
+    imaginary parts are rounding (the scheme is similar to a symmetric one only approximately).
     """
-    lam, V = eigsh_lowest(A, k)
-    V = V / np.sqrt(h2 * np.sum(V * V, axis=0))
-    fields = [interpolant(V[:, j]) for j in range(V.shape[1])]
+    from solvers.masked import _DIRS, MaskedGrid, MaskedInterpolant
+
+    grid = MaskedGrid(problem.domain, n)
+    h = grid.h
+    I, J = np.nonzero(grid.inside)
+    row = grid.index[I, J]
+    N = len(row)
+    if N <= k + 1:
+        raise ValueError(f"grid with n={n} has only {N} nodes inside the domain; raise `solver.n`")
+    P = grid.points.reshape(grid.nx + 1, grid.ny + 1, 2)[I, J]
+    arm, col = {}, {}
+    for (di, dj) in _DIRS:
+        i2, j2 = I + di, J + dj
+        valid = (i2 >= 0) & (i2 <= grid.nx) & (j2 >= 0) & (j2 <= grid.ny)
+        i2c, j2c = np.clip(i2, 0, grid.nx), np.clip(j2, 0, grid.ny)
+        unknown = valid & grid.inside[i2c, j2c]
+        cut = ~(unknown | (valid & grid.onb[i2c, j2c]))
+        s = np.full(N, h)
+        if cut.any():
+            s[cut] = grid.crossing(P[cut], np.array([di, dj], dtype=float))
+        arm[(di, dj)] = s
+        col[(di, dj)] = np.where(unknown, grid.index[i2c, j2c], -1)
+    diag = np.zeros(N)
+    rows, cols, data = [], [], []
+    for axis in (((1, 0), (-1, 0)), ((0, 1), (0, -1))):
+        hp, hm = arm[axis[0]], arm[axis[1]]
+        for dd, hd, ho in ((axis[0], hp, hm), (axis[1], hm, hp)):
+            c = 2.0 / (hd * (hd + ho))
+            diag += c
+            unk = col[dd] >= 0
+            rows.append(row[unk])
+            cols.append(col[dd][unk])
+            data.append(-c[unk])
+    A = sps.csr_matrix((np.concatenate([diag] + data), (np.concatenate([row] + rows),
+                                                         np.concatenate([row] + cols))), shape=(N, N))
+    asym = abs(A - A.T).max()
+    if asym <= 1e-12 * abs(A).max():
+        lam, V = eigsh_lowest(A, k)
+        method = "symmetric Lanczos"
+    else:
+        lu = spla.splu(A.tocsc(), permc_spec="MMD_AT_PLUS_A")
+        OPinv = spla.LinearOperator(A.shape, matvec=lu.solve, dtype=float)
+        v0 = np.ones(N) + 0.1 * np.cos(np.arange(N))
+        lam, V = spla.eigs(A, k=k, sigma=0.0, which="LM", OPinv=OPinv, v0=v0)
+        order = np.argsort(lam.real)
+        lam, V = lam.real[order], _sign_fix(V.real[:, order])
+        method = "shift-invert Arnoldi (non-symmetric Shortley-Weller matrix)"
+    V = V / np.sqrt(h * h * np.sum(V * V, axis=0))
+    fields = [MaskedInterpolant(grid, V[:, j], problem) for j in range(V.shape[1])]
 
     def modes(points):
         p = np.asarray(points, dtype=float)
         return np.column_stack([f(p) for f in fields])
 
-    return eigen_solution(lam, modes, {**info, "dofs": int(A.shape[0])}, nodes=interior_points,
-                          first_values=V[:, 0])
+    return eigen_solution(lam, modes, {**info, "dofs": int(N), "h": float(h), "scheme": "shortley-weller",
+                                       "eigen_method": method}, nodes=P, first_values=V[:, 0])
 
 
 # -- Chebyshev collocation on rectangles -----------------------------------------------------------

@@ -89,10 +89,15 @@ class FD5(_SparseFD):
     description = "5-point finite differences, sparse direct or AMG-CG solve (order 2)"
     reference = "LeVeque, Finite Difference Methods for ODEs and PDEs, SIAM 2007, ch. 3"
     # Non-rectangular domains: masked grid with Shortley-Weller arms (solvers/masked.py).
-    tags = Tags(kinds=frozenset({"laplace", "poisson"}),
+    tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}),
                 domains=frozenset({"rectangle", "disk", "annulus", "polygon"}))
 
     def _solve(self, problem, budget, ctx):
+        if problem.domain.kind != "rectangle" and problem.kind == "eigen":
+            from solvers.eigen import masked_eigen  # the same masked operator, eigenpairs
+
+            with ctx.phase("solve"):
+                return masked_eigen(problem, self.params.n, problem.n_eigs, {})
         if problem.domain.kind != "rectangle":
             from solvers.masked import masked_fd5
 

@@ -103,6 +103,24 @@ def _project_boundary(domain, pts: np.ndarray) -> np.ndarray:
     return c + d * (target / r)
 
 
+def with_facets(mesh):
+    """Give a scikit-fem mesh its facets and t2f, computed with integer keys.
+
+    scikit-fem's ``build_entities`` finds unique facets by ``np.unique(axis=1)`` on index pairs,
+    which sorts a structured view and took 8 of the 16 s of setup at level 9 (measured);
+    encoding each sorted pair (a, b) as the integer a N + b gives the same facets in the same
+    (lexicographic) order and the same t2f with a plain integer sort.
+    """
+    t = mesh.t
+    N = int(t.max()) + 1
+    pairs = np.hstack([t[list(ix)] for ix in mesh.elem.refdom.facets])
+    pairs = np.sort(pairs, axis=0).astype(np.int64)
+    keys, inverse = np.unique(pairs[0] * N + pairs[1], return_inverse=True)
+    mesh._facets = np.ascontiguousarray(np.vstack([keys // N, keys % N]).astype(t.dtype))
+    mesh._t2f = inverse.reshape(len(mesh.elem.refdom.facets), t.shape[1]).astype(t.dtype)
+    return mesh
+
+
 def boundary_facets(mesh) -> np.ndarray:
     """Facets that belong to one element only (counted from t2f; scikit-fem's own
     ``boundary_facets`` builds the facet-to-element map first, which took 2 s at 260k elements)."""
@@ -132,25 +150,27 @@ def build_mesh(domain, level: int, quadratic: bool = False):
     from skfem import MeshTri1, MeshTri2
 
     if domain.kind == "annulus":
-        m = _annulus_mesh(domain, level)
+        m = with_facets(_annulus_mesh(domain, level))
     elif domain.kind == "disk":
         p, t = _coarse(domain)
-        m = MeshTri1(p * domain.radius + np.array([[domain.cx], [domain.cy]]), t)
+        m = with_facets(MeshTri1(p * domain.radius + np.array([[domain.cx], [domain.cy]]), t))
         for _ in range(level):
-            m = m.refined()
+            m = with_facets(m.refined())
             D = np.unique(m.facets[:, boundary_facets(m)])
             q = m.p.copy()
             q[:, D] = _project_boundary(domain, q[:, D])
-            m = dataclasses.replace(m, doflocs=q)
+            m = with_facets(dataclasses.replace(m, doflocs=q))
     else:
         p, t = _coarse(domain)
-        m = MeshTri1(p, t).refined(level) if level > 0 else MeshTri1(p, t)
+        m = with_facets(MeshTri1(p, t))
+        for _ in range(level):
+            m = with_facets(m.refined())
     if quadratic and domain.kind in ("disk", "annulus"):
-        M = MeshTri2.from_mesh(m)
+        M = with_facets(MeshTri2.from_mesh(m))
         D = M.dofs.get_facet_dofs(boundary_facets(M)).flatten()
         q = M.doflocs.copy()
         q[:, D] = _project_boundary(domain, q[:, D])
-        return dataclasses.replace(M, doflocs=q)
+        return with_facets(dataclasses.replace(M, doflocs=q))
     return m
 
 

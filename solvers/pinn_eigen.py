@@ -32,7 +32,7 @@ import math
 import numpy as np
 
 from bench.config import ConfigError, one_of, positive
-from solvers.base import Diverged, Solution, Solver, Tags
+from solvers.base import Diverged, Solver, Tags
 
 __all__ = ["PINNEigen", "PINNEigenParams"]
 

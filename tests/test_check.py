@@ -404,3 +404,25 @@ def test_pinn_family_is_compared_by_median_even_when_reproducible():
     assert v[(GROUP, "rel_l2")] == "ok" and result.exit_code == 0
     _, v = verdicts(base, cur, median_families=[])     # per case: seed 1 grew 42x
     assert v[("sine(k=1,l=1) toy n=8 seed=1", "rel_l2")] == "regression"
+
+
+def test_times_of_another_calibration_kernel_are_not_compared():
+    base = [fake(0, 1e-3, deterministic=True)]
+    cur = [fake(0, 1e-3, deterministic=True, time=10.0)]        # ten times slower ...
+    cur[0]["environment"]["calibration_kernel"] = "other"       # ... by another yardstick
+    result, v = verdicts(base, cur)
+    assert ("sine(k=1,l=1) toy n=8 seed=0", "time") not in v and result.exit_code == 0
+    assert "runtime not compared" in result.notes[0]
+    with pytest.raises(ConfigError, match=r"^`check.baseline` times were normalised by calibration kernel 'k'"):
+        verdicts(base, cur, runtime="error")
+
+
+def test_count_metrics_must_not_change():
+    def eig(n_eigs):
+        rec = fake(0, 1e-3, deterministic=True)
+        rec["metrics"]["n_eigs"] = n_eigs        # an integer metric: how many eigenvalues came back
+        return rec
+    result, v = verdicts([eig(4)], [eig(4)])
+    assert v[("sine(k=1,l=1) toy n=8 seed=0", "n_eigs")] == "ok" and result.exit_code == 0
+    result, v = verdicts([eig(4)], [eig(3)])
+    assert v[("sine(k=1,l=1) toy n=8 seed=0", "n_eigs")] == "regression" and result.exit_code == 1

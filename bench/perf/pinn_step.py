@@ -51,9 +51,11 @@ def laplacian_strategies(repeats: int) -> list[dict]:
         net = Network((0, 1, 0, 1), WIDTH, DEPTH, "tanh", 0, 1.0, dtype, gen)
         x = torch.rand(POINTS, 2, dtype=dtype, generator=gen)
         opt = torch.optim.Adam(net.parameters(), lr=1e-6)
-        ref = net.derivatives(x, 2, "autograd")[2].detach()
+        # agreement first, on the same weights (the timed steps below change them)
+        laps = {m: net.derivatives(x, 2, m)[2].detach() for m in ("forward", "autograd", "func")}
+        ref = laps["autograd"]
         for method in ("forward", "autograd", "func"):
-            lap = net.derivatives(x, 2, method)[2].detach()
+            lap = laps[method]
 
             def step(method=method):
                 opt.zero_grad(set_to_none=True)

@@ -142,40 +142,39 @@ class Network(nn.Module):
 
     def _forward_derivatives(self, x, order):
         d = self.dim
-        n = x.shape[0]
         v = (x - self.center) * self.scale
-        # T holds the d gradient rows and (order 2) the Laplacian row: shape (d [+1], n, width)
-        eye = torch.diag(self.scale).to(x.dtype)                      # d(scaled x_j)/dx_i
-        rows = [eye[i].expand(n, d) for i in range(d)]
-        if order == 2:
-            rows.append(torch.zeros(n, d, dtype=x.dtype, device=x.device))
-        T = torch.stack(rows)
-        if order == 2:
-            lap_mask = torch.zeros(d + 1, 1, 1, dtype=x.dtype, device=x.device)
-            lap_mask[d] = 1.0
+        # G: d gradient rows (d, n, width); L: Laplacian row (n, width). Until the first
+        # nonlinearity both are the same for every point, so G starts as (d, 1, width) and
+        # broadcasts (this alone halves the step time against carrying (d, n, d) identities).
+        G = L = None
         if self.fourier is not None:
             z = v @ self.fourier.T
-            T = T @ self.fourier.T
+            G0 = (self.scale[:, None] * self.fourier.T)[:, None, :]       # (d, 1, m)
             c, s = torch.cos(z), torch.sin(z)
             v = torch.cat([c, s], dim=-1)
-            Tn = torch.cat([-s * T, c * T], dim=-1)
+            G = torch.cat([-s * G0, c * G0], dim=-1)
             if order == 2:
-                sq = (T[:d] ** 2).sum(0)
-                Tn = Tn + torch.cat([-c * sq, -s * sq], dim=-1) * lap_mask
-            T = Tn
+                sq = (G0 * G0).sum(0)                                      # (1, m)
+                L = torch.cat([-c * sq, -s * sq], dim=-1)
         for lin in self.layers[:-1]:
-            z = lin(v)
-            T = T @ lin.weight.T
+            W = lin.weight
+            z = nn.functional.linear(v, W, lin.bias)
+            if G is None:
+                G = (self.scale[:, None] * W.T)[:, None, :]                # (d, 1, width)
+            else:
+                G = G @ W.T
+                if order == 2:
+                    L = L @ W.T
             v, s1, s2 = activation_derivatives(self.activation, z)
             if order == 2:
-                T = s1 * T + (s2 * (T[:d] ** 2).sum(0)) * lap_mask
-            else:
-                T = s1 * T
+                curv = s2 * (G * G).sum(0)
+                L = curv if L is None else torch.addcmul(curv, s1, L)
+            G = s1 * G
         last = self.layers[-1]
         u = last(v).squeeze(-1)
-        T = (T @ last.weight.T).squeeze(-1)                           # (d [+1], n)
-        grad = T[:d].T
-        return u, grad, (T[d] if order == 2 else None)
+        grad = (G @ last.weight.T).squeeze(-1).T                           # (n, d)
+        lap = (L @ last.weight.T).squeeze(-1) if order == 2 else None
+        return u, grad, lap
 
     def _autograd_derivatives(self, x, order):
         x = x.detach().requires_grad_(True)
