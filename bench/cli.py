@@ -82,6 +82,7 @@ class Args:
         for d in self.config_dirs:
             if not Path(d).is_dir():
                 fail(f"`--config-dir` {d!r} is not a folder")
+        self.overrides = replace_mapping_overrides(self.overrides)
 
     @staticmethod
     def _value(flag, it):
@@ -102,6 +103,33 @@ class Args:
         if not self.config_dirs:
             return []
         return ["hydra.searchpath=[" + ",".join(f"file://{Path(d).resolve()}" for d in self.config_dirs) + "]"]
+
+
+def replace_mapping_overrides(overrides: list[str]) -> list[str]:
+    """``key={...}`` replaces the node instead of merging into it.
+
+    Hydra merges a mapping value into the existing node, so ``problem.domain={kind: disk,
+    radius: 2}`` would keep the rectangle's x0..y1 and fail. lapbench rewrites it to
+    ``~key`` + ``+key={...}``, Hydra's own spelling of a replacement.
+    """
+    from hydra.core.override_parser.overrides_parser import OverridesParser
+
+    out = []
+    parser = OverridesParser.create()
+    for o in overrides:
+        try:
+            p = parser.parse_override(o)
+        except Exception:  # noqa: BLE001  (reported with context by the validation that follows)
+            out.append(o)
+            continue
+        if (not p.is_add() and not p.is_delete() and not p.is_sweep_override() and p.package is None
+                and "." in p.key_or_group and not p.key_or_group.startswith("hydra")
+                and isinstance(p.value(), dict)):
+            key = p.key_or_group
+            out += [f"~{key}", f"+{key}={o.split('=', 1)[1]}"]
+        else:
+            out.append(o)
+    return out
 
 
 def _group_options(group: str, overrides: list[str] | None = None) -> list[str]:

@@ -247,7 +247,8 @@ def annotate_config_error(exc: ConfigError, cfg, overrides: list[str], suite=Non
     group, key = m.group(1), m.group(2)
 
     def sets(o: str) -> bool:
-        return o.split("=", 1)[0].lstrip("+~") == f"{group}.{key}"
+        # `~key` only deletes (the rewrite of a mapping value): the `+key=...` after it sets it
+        return not o.startswith("~") and o.split("=", 1)[0].lstrip("+") == f"{group}.{key}"
 
     for o in overrides:
         if sets(o) and not o.startswith("hydra."):

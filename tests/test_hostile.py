@@ -30,14 +30,20 @@ _DANGEROUS = ("os.system", "os.exec", "os.posix_spawn", "os.spawn", "os.fork", "
               "os.chmod", "os.kill", "webbrowser.", "pty.spawn")
 
 
+_SYMPY_CODEGEN = os.path.join("sympy", "polys", "monomials.py")
+
+
 def _audit(event, args):
     if not _WATCH["on"]:
         return
     if event == "exec":
         code = args[0]
-        # executing a module being imported has a real file; code made from a string does not
-        if getattr(code, "co_filename", "<?>").startswith("<"):
-            _WATCH["events"].append(f"exec of dynamic code {code!r}")
+        # executing a module being imported has a real file; code made from a string does not.
+        # One exception: sympy's polynomial rings generate their monomial arithmetic from fixed
+        # templates of its own (sympy/polys/monomials.py, MonomialOps._build), no user text in it.
+        caller = sys._getframe(1).f_code.co_filename
+        if getattr(code, "co_filename", "<?>").startswith("<") and not caller.endswith(_SYMPY_CODEGEN):
+            _WATCH["events"].append(f"exec of dynamic code {code!r} from {caller}")
     elif event.startswith(_DANGEROUS):
         _WATCH["events"].append(event)
     elif event == "open" and len(args) > 1 and isinstance(args[1], str) and set(args[1]) & set("wax+"):
