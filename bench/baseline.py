@@ -169,6 +169,8 @@ def entry_from_record(rec: dict) -> tuple[str, dict]:
         "threads": rec.get("threads"),
         "time_s": _round(total, TIME_DIGITS) if ok_time else None,
         "time_norm": _round(total / cal, TIME_DIGITS) if ok_time and cal else None,
+        # cores kept busy by other processes during the case: its time is not trusted above a limit
+        "foreign_load": _round((rec.get("environment") or {}).get("foreign_load"), 2) if ok_time else None,
     }
     key = case_key(entry["problem"], entry["solver"], entry["resolution"], options, entry["seed"])
     return key, entry
@@ -335,7 +337,7 @@ def read_baseline(path: str | Path, suite: str | None = None) -> dict:
             raise _bad(path, f"case {key!r}: field 'counts' is not a mapping of integers")
         try:
             entry["errors"] = {k: _number(v) for k, v in entry["errors"].items()}
-            for field in ("time_s", "time_norm"):
+            for field in ("time_s", "time_norm", "foreign_load"):
                 entry[field] = _number(entry.get(field))
         except ValueError as exc:
             raise _bad(path, f"case {key!r}: {exc.args[0]!r} is not a number") from None

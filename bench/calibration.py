@@ -1,10 +1,13 @@
 """Calibration kernel: a fixed CPU workload timed beside the cases, so that times can be
 normalised by the speed of the machine that produced them.
 
-A record's normalised time is ``timings.total / environment.calibration_s``. Both are measured
-in the same process on the same machine within minutes of each other, so a uniformly faster or
-slower machine changes both by the same factor and the ratio stays put; `lapbench check`
-compares these ratios, never raw seconds.
+A record's normalised time is ``timings.total / environment.calibration_s``. The kernel is timed
+by the harness right before each case, on the same machine under the same load, so a uniformly
+faster or slower (or busier) machine changes both by about the same factor and the ratio stays
+put; `lapbench check` compares these ratios, never raw seconds. Timing once per process was
+tried first: under a load that changed during a sweep, normalised times of a rerun drifted by
+factors of 2 to 4, because the one calibration no longer described the machine the later cases
+ran on.
 
 The kernel mixes the three kinds of work the solvers do: dense BLAS (a matrix product, like
 Chebyshev collocation and network layers), a real 2-D FFT (the sine-transform solvers) and a
@@ -18,11 +21,10 @@ __all__ = ["KERNEL", "calibration_seconds", "measure"]
 
 # Identifies the workload; normalised times are comparable only between equal kernel names.
 # Change the name whenever the workload below changes.
-KERNEL = "mm384+rfft2-1024+splu2d-96/v1"
-REPEATS = 3          # the minimum of a few repeats discards interruptions by other processes
-MAX_AGE = 120.0      # seconds a cached measurement is reused before it is taken again
+KERNEL = "mm384+rfft2-1024+splu2d-96/median3/v2"
+REPEATS = 3          # the median of three: one interruption by another process does not count
 
-_CACHE: dict = {"t": None, "at": None, "inputs": None}
+_CACHE: dict = {"inputs": None, "warm": False}
 
 
 def _inputs():
@@ -60,21 +62,22 @@ def _once(inputs) -> float:
 
 
 def measure(repeats: int = REPEATS) -> float:
-    """Seconds of one kernel run on one thread: the minimum over `repeats` runs."""
+    """Seconds of one kernel run on one thread: the median over `repeats` runs (about 30 ms each
+    on the 2-core development machine when it is quiet)."""
+    import statistics
+
     import scipy.fft
     from threadpoolctl import threadpool_limits
 
     inputs = _inputs()
     # One thread always: the ratio should track the speed of a core, whatever the case's threads.
     with threadpool_limits(limits=1), scipy.fft.set_workers(1):
-        _once(inputs)  # warm-up: first-touch page faults and lazy library initialisation
-        return min(_once(inputs) for _ in range(repeats))
+        if not _CACHE["warm"]:
+            _once(inputs)  # first run in a process: page faults and lazy library initialisation
+            _CACHE["warm"] = True
+        return statistics.median(_once(inputs) for _ in range(repeats))
 
 
 def calibration_seconds() -> float:
-    """The kernel's time in this process, measured at most every MAX_AGE seconds."""
-    now = time.monotonic()
-    if _CACHE["t"] is None or now - _CACHE["at"] > MAX_AGE:
-        _CACHE["t"] = measure()
-        _CACHE["at"] = time.monotonic()
-    return _CACHE["t"]
+    """The kernel's time now, in this process (the harness calls it right before each case)."""
+    return measure()

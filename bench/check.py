@@ -11,10 +11,11 @@ Rules (options in conf/check/default.yaml, overridable as ``check.<key>=...``):
   machines), per group of seeds: the median error over the seeds that finished ``ok`` may grow
   to at most ``stochastic_factor * max(baseline median, error_floor)``, and the number of
   failed seeds may not grow.
-- Runtime: the solver's time divided by the calibration kernel's time of the same run
-  (`bench.calibration`), clamped below at ``runtime_floor`` (tiny times are jitter), may grow by
-  at most ``runtime_factor``; ``runtime`` says whether that is an ``error``, a ``warn`` or
-  ``off``.
+- Runtime: the solver's time divided by the calibration kernel's time taken right before the
+  case (`bench.calibration`), clamped below at ``runtime_floor`` (tiny times are jitter), may
+  grow by at most ``runtime_factor``; ``runtime`` says whether that is an ``error``, a ``warn``
+  or ``off``. Cases during which other processes kept more than ``busy_limit`` cores busy (on
+  either side) are not time-compared: their times measure the neighbours (a note says how many).
 - Baseline cases without a record are listed as missing (an error unless ``missing=warn``);
   cases without a baseline entry are listed as new.
 
@@ -62,6 +63,7 @@ class CheckConfig:
     runtime: str = "warn"
     runtime_factor: float = 2.0
     runtime_floor: float = 0.5
+    busy_limit: float | None = 1.0
     missing: str = "error"
     metrics: list[str] | None = None
     out_dir: str | None = None
@@ -72,6 +74,8 @@ class CheckConfig:
             v = getattr(self, name)
             if not v >= 1.0:
                 raise ConfigError(f"`{name}` must be a factor of at least 1, got {v!r}")
+        if self.busy_limit is not None and self.busy_limit < 0:
+            raise ConfigError(f"`busy_limit` must be null or zero or positive, got {self.busy_limit!r}")
         for name in ("error_floor", "runtime_floor"):
             if getattr(self, name) < 0:
                 raise ConfigError(f"`{name}` must be zero or positive, got {getattr(self, name)!r}")
@@ -80,6 +84,11 @@ class CheckConfig:
         one_of("show", self.show, SHOW)
         if self.metrics is not None and not self.metrics:
             raise ConfigError("`metrics` must be null (every recorded error) or a non-empty list")
+
+    def busy(self, entry: dict) -> bool:
+        """Whether other processes kept more than `busy_limit` cores busy during the case."""
+        load = entry.get("foreign_load")
+        return self.busy_limit is not None and isinstance(load, (int, float)) and load > self.busy_limit
 
     def by_median(self, entry: dict) -> bool:
         """Whether a case is compared through the median over its seed group."""
@@ -272,20 +281,29 @@ def compare(base_doc: dict, cur_doc: dict, cfg: CheckConfig, not_run: set[str] |
                      f"this run with {ck!r}; regenerate the baseline")
     findings: list[Finding] = []
     compared = 0
+    busy = 0
     groups_b: dict[str, list] = {}
     groups_c: dict[str, list] = {}
     for key in sorted(set(base) & set(cur)):
         b, c = base[key], cur[key]
         if not (cfg.by_median(b) or cfg.by_median(c)):
             compared += 1
-            findings += _compare_case(key, b, c, cfg, timing)
+            quiet = not (cfg.busy(b) or cfg.busy(c))
+            busy += timing and not quiet
+            findings += _compare_case(key, b, c, cfg, timing and quiet)
         else:
             groups_b.setdefault(group_key(b), []).append(b)
             groups_c.setdefault(group_key(c), []).append(c)
     for gkey in sorted(groups_b):
         compared += 1
+        quiet = not any(cfg.busy(e) for e in groups_b[gkey] + groups_c[gkey])
+        busy += timing and not quiet
         findings += _compare_group(gkey, sorted(groups_b[gkey], key=lambda e: e["seed"]),
-                                   sorted(groups_c[gkey], key=lambda e: e["seed"]), cfg, timing)
+                                   sorted(groups_c[gkey], key=lambda e: e["seed"]), cfg, timing and quiet)
+    if busy:
+        notes.append(f"time of {busy} of {compared} cases not compared: other processes kept more than "
+                     f"{cfg.busy_limit:g} {'core' if cfg.busy_limit == 1 else 'cores'} busy while they ran (records' environment.foreign_load; "
+                     "check.busy_limit)")
     for key in sorted(set(base) - set(cur)):
         b = base[key]
         if key in not_run:

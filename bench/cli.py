@@ -388,11 +388,11 @@ def _worker_share(hc) -> int | None:
 
     from bench.run import launcher_share
 
+    if hc.mode.name != "MULTIRUN":
+        return None
     try:
         launcher = OmegaConf.to_container(hc.launcher, resolve=True)
-    except Exception:  # noqa: BLE001  (an unresolvable launcher field: no share, cores stay capped by affinity)
-        return None
-    if hc.mode.name != "MULTIRUN":
+    except Exception:  # noqa: BLE001  (unresolvable launcher field: the affinity mask still caps cores)
         return None
     return launcher_share(launcher)
 

@@ -9,6 +9,7 @@ with an `ExpressionError`. No string is ever passed to `eval`, `exec` or `sympy.
 from __future__ import annotations
 
 import ast
+import warnings
 from functools import lru_cache
 
 import numpy as np
@@ -125,7 +126,9 @@ def parse(text: str, field: str = "problem.u") -> sp.Expr:
     if not text.strip():
         raise ExpressionError(f"`{field}`: empty expression")
     try:
-        tree = ast.parse(text.strip(), mode="eval")
+        with warnings.catch_warnings():  # e.g. "invalid decimal literal": the error below says it
+            warnings.simplefilter("ignore", SyntaxWarning)
+            tree = ast.parse(text.strip(), mode="eval")
     except (SyntaxError, ValueError) as exc:
         raise ExpressionError(f"`{field}`: syntax error in expression {text[:80]!r}: "
                               f"{getattr(exc, 'msg', str(exc))}") from None

@@ -6,14 +6,25 @@ import numpy as np
 __all__ = ["BadSolution", "solution_errors", "checked_values", "error_field"]
 
 
+CHUNK = 65536   # points per evaluate call when measuring errors
+
+
 class BadSolution(ValueError):
     """A solver returned values of the wrong shape or non-finite values (record: `failed`)."""
 
 
 def checked_values(fn, points: np.ndarray, what: str = "Solution.evaluate") -> np.ndarray:
-    """Call ``fn(points)`` and insist on a finite float vector of matching length."""
+    """Call ``fn(points)`` and insist on a finite float vector of matching length.
+
+    Large point sets are passed in chunks of `CHUNK` points, so that an interpolant's
+    temporary arrays (e.g. barycentric weight matrices) stay bounded in memory.
+    """
     try:
-        v = np.asarray(fn(points), dtype=float)
+        if len(points) > CHUNK:
+            v = np.concatenate([np.asarray(fn(points[i:i + CHUNK]), dtype=float).reshape(-1)
+                                for i in range(0, len(points), CHUNK)])
+        else:
+            v = np.asarray(fn(points), dtype=float)
     except (TypeError, ValueError) as exc:
         raise BadSolution(f"{what} returned something that is not an array of numbers: {exc}") from None
     if v.ndim == 2 and v.shape[1] == 1:

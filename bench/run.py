@@ -502,8 +502,9 @@ def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tu
     # computed references (eigen problems without closed form) are built here, in the parent and
     # before the clock starts, and cached under results_dir/cache: never on the solver's time
     ref_error = _ensure_reference(prep) if prep.unsupported is None else None
-    # machine speed, in the same process and minutes of the case: `lapbench check` divides by it
-    cal = {"calibration_s": calibration.calibration_seconds(), "calibration_kernel": calibration.KERNEL}
+    # machine speed right before the case, same process and load: `lapbench check` divides by it
+    cal = ({"calibration_s": calibration.calibration_seconds(), "calibration_kernel": calibration.KERNEL}
+           if prep.unsupported is None else {})
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     load0 = os.getloadavg()[0] if hasattr(os, "getloadavg") else None
     busy0, own0 = _cpu_times()

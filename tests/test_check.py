@@ -158,7 +158,8 @@ def test_noise_within_tolerance_and_improvements_pass(world, tmp_path):
             rec["metrics"] = {k: v / 10 for k, v in rec["metrics"].items()}    # a tenfold improvement
         rec["timings"]["total"] *= 1.8                                          # below the factor 2
     edit(results, jitter)
-    p, table, md, junit = check(world, results, "check.runtime=error", "check.runtime_floor=0")
+    p, table, md, junit = check(world, results, "check.runtime=error", "check.runtime_floor=0",
+                                "check.busy_limit=null")
     assert p.returncode == 0, table + p.stderr
     assert "0 regressions" in table and "4 improved" in table
     improved = [ln for ln in table.splitlines() if ln.startswith("improved")]
@@ -185,7 +186,7 @@ def test_times_scaled_by_a_constant_compare_unchanged(world, tmp_path):
         rec["environment"]["calibration_s"] *= 7.3
     edit(results, slower_machine)
     p, table, md, junit = check(world, results, "check.runtime=error", "check.runtime_floor=0",
-                                "check.runtime_factor=1.01", "check.show=all")
+                                "check.runtime_factor=1.01", "check.show=all", "check.busy_limit=null")
     assert p.returncode == 0, table + p.stderr
     time_rows = [cells(ln) for ln in table.splitlines() if ln.startswith("ok") and "  time  " in ln]
     assert len(time_rows) == 8
@@ -194,7 +195,7 @@ def test_times_scaled_by_a_constant_compare_unchanged(world, tmp_path):
     # in process, the same comparison exactly: every time finding has ratio 1 up to storage rounding
     base = summarise(list(iter_records(world["runs"])), "checktiny")
     cur = summarise(list(iter_records(results)), "checktiny")
-    cfg = CheckConfig(runtime="error", runtime_floor=0.0, runtime_factor=1.01)
+    cfg = CheckConfig(runtime="error", runtime_floor=0.0, runtime_factor=1.01, busy_limit=None)
     times = [f for f in compare(base, cur, cfg).findings if f.check == "time"]
     assert len(times) == 8 and all(abs(f.ratio - 1) <= 0.005 and f.verdict == "ok" for f in times)
 
@@ -274,7 +275,7 @@ def test_doubled_normalised_time(world, tmp_path, mode, code):
     edit(results, slow_one)
     # smoke-sized cases take milliseconds: no floor, and a tolerance below the injected factor 2
     p, table, md, junit = check(world, results, f"check.runtime={mode}", "check.runtime_floor=0",
-                                "check.runtime_factor=1.5")
+                                "check.runtime_factor=1.5", "check.busy_limit=null")
     key = "sine(k=1,l=1) fd5 n=16 seed=0"
     assert p.returncode == code, table + p.stderr
     row = [ln for ln in table.splitlines() if f"  {key}  time  " in ln]
@@ -426,3 +427,14 @@ def test_count_metrics_must_not_change():
     assert v[("sine(k=1,l=1) toy n=8 seed=0", "n_eigs")] == "ok" and result.exit_code == 0
     result, v = verdicts([eig(4)], [eig(3)])
     assert v[("sine(k=1,l=1) toy n=8 seed=0", "n_eigs")] == "regression" and result.exit_code == 1
+
+
+def test_times_measured_on_a_busy_machine_are_not_compared():
+    base = [fake(0, 1e-3, deterministic=True)]
+    cur = [fake(0, 1e-3, deterministic=True, time=10.0)]          # ten times slower ...
+    cur[0]["environment"]["foreign_load"] = 1.7                   # ... with 1.7 cores taken by others
+    result, v = verdicts(base, cur, runtime="error")
+    assert ("sine(k=1,l=1) toy n=8 seed=0", "time") not in v and result.exit_code == 0
+    assert result.notes[0].startswith("time of 1 of 1 cases not compared: other processes kept more than 1 core busy")
+    result, v = verdicts(base, cur, runtime="error", busy_limit=None)
+    assert v[("sine(k=1,l=1) toy n=8 seed=0", "time")] == "regression" and result.exit_code == 1

@@ -126,3 +126,12 @@ def test_conf_found_when_installed_non_editable(tmp_path):
     assert p.returncode == 0, p.stderr
     assert str(target) in p.stdout
     assert (Path(p.stdout.strip()) / "solver" / "fd5.yaml").is_file()
+
+
+def test_mapping_override_replaces_domain(tmp_path):
+    """`problem.domain={...}` replaces the rectangle instead of merging into its x0..y1."""
+    run(["run", "problem=expr", "problem.u='x**2 - y**2'", "problem.domain={kind: disk, radius: 0.5}",
+         "solver=fem_p1", "solver.level=2", f"results_dir={tmp_path}"], tmp_path, check=0)
+    (rec,) = [json.loads(r.read_text()) for r in records(tmp_path)]
+    assert rec["problem"]["domain"] == {**rec["problem"]["domain"], "kind": "disk", "radius": 0.5}
+    assert rec["status"] == "ok"

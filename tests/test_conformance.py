@@ -30,7 +30,7 @@ TEST_BUDGETS = {
                            ("pinn_rar", {"rar_every": 50, "rar_candidates": 512, "rar_add": 16}))},
     # eigen PINN on eigen_square (k = 6 modes, one net each): 50 Adam + 20 L-BFGS steps per mode;
     # lambda_1 within 1e-2 of 2 pi^2 (the sanity bound is 0.5), a few seconds per solve
-    "pinn_eigen": {"width": 12, "depth": 2, "n_interior": 128, "adam_steps": 50, "lbfgs_steps": 20,
+    "pinn_eigen": {"width": 12, "depth": 2, "train_level": 6, "adam_steps": 50, "lbfgs_steps": 20,
                    "quad_level": 16},
 }
 

@@ -5,11 +5,18 @@ The misbehaving solvers live in tests/fault_solvers.py and are loaded as plug-in
 each fault a healthy case must still run normally in the same harness process.
 """
 import json
+import os
+import signal
+import subprocess
+import sys
+import time
 
+import psutil
 import pytest
 
 from bench.records import read_record
 from bench.run import Case, run_case
+from tests.conftest import ROOT
 
 FAST = {"time_limit": 1.0, "memory_limit_mb": 150.0}
 
@@ -72,3 +79,22 @@ def test_one_huge_allocation_is_refused_not_swapped(tmp_path):
     """A single allocation far above the limit fails inside the case (address-space backstop)."""
     rec, _ = run_case(fault_case("FaultMemory", mb=64 * 1024, chunk_mb=64 * 1024), tmp_path)
     assert rec["status"] == "out_of_memory", rec["reason"]
+
+
+def test_an_interrupted_harness_takes_its_case_down(tmp_path):
+    """Ctrl-C (SIGINT to the harness only) ends the running case at once: no orphan keeps running."""
+    script = ("from bench.run import Case, run_case\n"
+              "run_case(Case(problem={'name': 'sine'}, solver={'_target_': 'tests.fault_solvers.FaultHang'},"
+              f" budget={{'time_limit': 120}}), {str(tmp_path)!r})\n")
+    proc = subprocess.Popen([sys.executable, "-c", script], cwd=ROOT, stderr=subprocess.PIPE, text=True,
+                            env={**os.environ, "PYTHONPATH": str(ROOT)}, start_new_session=True)
+    t0 = time.monotonic()
+    while not psutil.Process(proc.pid).children():
+        assert proc.poll() is None and time.monotonic() - t0 < 60, proc.stderr.read() if proc.poll() else ""
+        time.sleep(0.05)
+    case_proc = psutil.Process(proc.pid).children()[0]
+    os.kill(proc.pid, signal.SIGINT)  # the harness alone, not its process group
+    _, alive = psutil.wait_procs([case_proc], timeout=10)
+    assert not alive, "the case outlived its interrupted harness"
+    assert proc.wait(timeout=30) != 0 and "KeyboardInterrupt" in proc.stderr.read()
+    assert not (tmp_path / "runs").exists()  # an interrupted case leaves no record: a rerun redoes it

@@ -33,16 +33,29 @@ _DANGEROUS = ("os.system", "os.exec", "os.posix_spawn", "os.spawn", "os.fork", "
 _SYMPY_CODEGEN = os.path.join("sympy", "polys", "monomials.py")
 
 
+def _importing() -> bool:
+    """Whether a module import is under way on the current stack."""
+    frame = sys._getframe(2)
+    while frame is not None:
+        if frame.f_code.co_filename.startswith("<frozen importlib._bootstrap"):
+            return True
+        frame = frame.f_back
+    return False
+
+
 def _audit(event, args):
     if not _WATCH["on"]:
         return
     if event == "exec":
         code = args[0]
-        # executing a module being imported has a real file; code made from a string does not.
-        # One exception: sympy's polynomial rings generate their monomial arithmetic from fixed
-        # templates of its own (sympy/polys/monomials.py, MonomialOps._build), no user text in it.
+        # Executing a module being imported has a real file; code made from a string does not.
+        # Two sources of such code carry no user text and are allowed: sympy's polynomial rings
+        # generate their monomial arithmetic from fixed templates (sympy/polys/monomials.py), and
+        # sympy modules imported lazily (e.g. sympy.physics.units, on first simplify) sympify
+        # their own constant strings at import time.
         caller = sys._getframe(1).f_code.co_filename
-        if getattr(code, "co_filename", "<?>").startswith("<") and not caller.endswith(_SYMPY_CODEGEN):
+        if getattr(code, "co_filename", "<?>").startswith("<") and not caller.endswith(_SYMPY_CODEGEN) \
+                and not _importing():
             _WATCH["events"].append(f"exec of dynamic code {code!r} from {caller}")
     elif event.startswith(_DANGEROUS):
         _WATCH["events"].append(event)

@@ -95,17 +95,17 @@ def test_kill_a_joblib_worker_mid_sweep_then_resume(tmp_path):
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env())
     wait_for_records(results, 2, proc)
     workers = [c for c in psutil.Process(proc.pid).children(recursive=True)
-               if "loky" in " ".join(c.cmdline())]
+               if "LokyProcess" in " ".join(c.cmdline())]
     assert workers, "no joblib worker found"
-    kill_and_reap(proc, workers[0].pid)  # the driver gives up on a dead worker (joblib's rule)
+    kill_and_reap(proc, workers[0].pid)
+    assert proc.returncode != 0  # joblib gives up the sweep when a worker dies; the rerun finishes it
     done = record_files(results)
-    assert all(read_record(f) is not None for f in done)
-    if len(done) < N_CASES:
-        check_resumed(tmp_path, conf, results, {f.name: f.read_bytes() for f in done})
+    assert 2 <= len(done) < N_CASES and all(read_record(f) is not None for f in done)
+    check_resumed(tmp_path, conf, results, {f.name: f.read_bytes() for f in done})
 
 
 # -- concurrent writers -----------------------------------------------------------------------------
-SHARED = [Case(problem={"name": "sine"}, solver={"name": "fd5", "n": n}) for n in range(4, 10)]
+SHARED = [Case(problem={"name": "sine"}, solver={"name": "fd5", "n": n}) for n in range(4, 9)]
 
 
 def _writer(results, k):
@@ -134,6 +134,9 @@ def _reader(results, stop, bad):
 
 
 def test_eight_concurrent_writers_lose_nothing(tmp_path):
+    # measure the per-process constants once here (machine speed, package versions, git revision):
+    # the forked writers inherit them instead of each measuring them again
+    run_case(Case(problem={"name": "sine"}, solver={"name": "fd5", "n": 4}), tmp_path / "warm")
     ctx = mp.get_context("fork")
     stop, bad = ctx.Event(), ctx.Value("i", 0)
     reader = ctx.Process(target=_reader, args=(tmp_path, stop, bad))
@@ -149,7 +152,7 @@ def test_eight_concurrent_writers_lose_nothing(tmp_path):
     assert bad.value == 0, "a reader saw a half-written record"
     files = record_files(tmp_path)
     recs = [read_record(f) for f in files]
-    # 6 shared cases (written 8 times each) + 8 writers' own cases, each exactly once
+    # 5 shared cases (written 8 times each) + 8 writers' own cases, each exactly once
     assert len(files) == len(SHARED) + 8 and all(r is not None for r in recs)
     assert sorted(r["seed"] for r in recs if r["problem"]["label"] == "harmonic") == list(range(8))
     assert not list((tmp_path / "runs").glob(".tmp-*")), "temporary files left behind"
