@@ -354,9 +354,9 @@ def wavefront(p: WavefrontParams) -> Problem:
     350-364 (sets (alpha, xc, yc, r0): (20, -0.05, -0.05, 0.7), (1000, -0.05, -0.05, 0.7),
     (1000, 1.5, 0.25, 0.92), (50, 0.5, 0.5, 0.25)).
     """
-    from bench.expr import Manufactured
+    from bench.expr import manufactured
 
-    m = Manufactured(f"atan({p.alpha!r}*(sqrt((x-({p.xc!r}))**2 + (y-({p.yc!r}))**2) - {p.r0!r}))")
+    m = manufactured(f"atan({p.alpha!r}*(sqrt((x-({p.xc!r}))**2 + (y-({p.yc!r}))**2) - {p.r0!r}))")
     level = int(min(MAX_EVAL_LEVEL, max(48, 2 * p.alpha)))
     return Problem("wavefront", "poisson", Rectangle(), f=m.f, g=m.u, exact=m.u,
                    params={"alpha": p.alpha, "xc": p.xc, "yc": p.yc, "r0": p.r0},
@@ -382,10 +382,10 @@ def layer(p: LayerParams) -> Problem:
     A manufactured Poisson counterpart of the boundary-layer problem in Mitchell's collection
     (Appl. Math. Comput. 220 (2013) 350-364), where that problem is convection-diffusion.
     """
-    from bench.expr import Manufactured
+    from bench.expr import manufactured
 
     e = repr(p.eps)
-    m = Manufactured(f"(1 - exp(-(1-x)/{e}))*(1 - exp(-(1-y)/{e}))*cos(pi*(x+y))")
+    m = manufactured(f"(1 - exp(-(1-x)/{e}))*(1 - exp(-(1-y)/{e}))*cos(pi*(x+y))")
     level = int(min(MAX_EVAL_LEVEL, max(48, 8 / p.eps)))
     return Problem("layer", "poisson", Rectangle(), f=m.f, g=m.u, exact=m.u, params={"eps": p.eps},
                    source="manufactured boundary-layer solution (after Mitchell 2013); f by sympy",
@@ -408,9 +408,9 @@ def expr(p: ExprParams) -> Problem:
     sympy derives f = -Laplace(u) and the Dirichlet data g = u; the string is parsed safely
     (bench.expr). Source: method of manufactured solutions [common practice].
     """
-    from bench.expr import Manufactured
+    from bench.expr import manufactured
 
-    m = Manufactured(p.u, field="problem.u")
+    m = manufactured(p.u, field="problem.u")
     d = make_domain(p.domain)
     return Problem("expr", "laplace" if m.is_harmonic else "poisson", d, f=None if m.is_harmonic else m.f,
                    g=m.u, exact=m.u, params={"u": p.u},
