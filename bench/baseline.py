@@ -17,9 +17,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
-import os
 import statistics
-import tempfile
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -265,24 +263,10 @@ def dumps_baseline(doc: dict) -> str:
 
 
 def write_baseline(path: str | Path, doc: dict) -> Path:
-    """Write atomically (temp file in the target folder, fsync, chmod 0644, os.replace)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".json", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w") as fh:
-            fh.write(dumps_baseline(doc))
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-    return path
+    """Write atomically (bench.records.write_atomic)."""
+    from bench.records import write_atomic
+
+    return write_atomic(path, dumps_baseline(doc))
 
 
 def _bad(path, why: str) -> ConfigError:

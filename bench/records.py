@@ -11,7 +11,7 @@ import warnings
 from functools import lru_cache
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "STATUSES", "config_hash", "record_path", "write_record", "read_record",
+__all__ = ["SCHEMA_VERSION", "STATUSES", "config_hash", "record_path", "write_atomic", "write_record", "read_record",
            "iter_records", "load_records", "to_frame", "environment", "RecordWarning"]
 
 SCHEMA_VERSION = 1
@@ -41,15 +41,18 @@ def record_path(results_dir: str | Path, problem: str, solver: str, chash: str) 
     return Path(results_dir) / RUNS / f"{_slug(problem)}__{_slug(solver)}__{chash[:16]}.json"
 
 
-def write_record(path: str | Path, record: dict) -> Path:
-    """Write JSON atomically: temp file in the target folder, fsync, chmod 0644, os.replace."""
+def write_atomic(path: str | Path, text: str) -> Path:
+    """Write text atomically: temp file in the target folder, fsync, chmod 0644, os.replace.
+
+    Readers see the old file or the new one, never a part (mkstemp's 0600 mode is widened so
+    that other users of a shared results folder can read it).
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    data = json.dumps(record, indent=1, sort_keys=True, allow_nan=True, default=_json_default)
     fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".json", dir=path.parent)
     try:
         with os.fdopen(fd, "w") as fh:
-            fh.write(data)
+            fh.write(text)
             fh.flush()
             os.fsync(fh.fileno())
         os.chmod(tmp, 0o644)
@@ -69,6 +72,12 @@ def write_record(path: str | Path, record: dict) -> Path:
     except OSError:
         pass
     return path
+
+
+def write_record(path: str | Path, record: dict) -> Path:
+    """Write a record as JSON atomically (see `write_atomic`)."""
+    return write_atomic(path, json.dumps(record, indent=1, sort_keys=True, allow_nan=True,
+                                         default=_json_default))
 
 
 def _json_default(o):

@@ -231,8 +231,26 @@ def test_wall_clock_cap_stops_training():
     assert ctx.timings["train"] < 1.5 + 10 * step_time + 0.5
 
 
+class _TickClock(RunContext):
+    """A deterministic clock: every reading of the method's time advances it by 10 ms, so the
+    cap falls inside L-BFGS whatever the machine's speed (a wall-clock cap of 1.5 s let a fast,
+    idle machine finish L-BFGS by its own tolerance first)."""
+
+    def __init__(self, *a, **k):
+        super().__init__(*a, **k)
+        self.ticks = 0
+
+    def elapsed(self):
+        self.ticks += 1
+        return 0.01 * self.ticks
+
+
 def test_cap_during_lbfgs_keeps_best_parameters():
-    _, sol, ctx = _run("pinn_hard", train_time=1.5, adam_steps=20, lbfgs_steps=10 ** 6)
+    prob = make_problem({"name": "sine"})
+    ctx = _TickClock(seed=0)
+    # float64: L-BFGS's change tolerance (1e-15) cannot be met in the ~100 evaluations before the cap
+    params = {**TINY, "adam_steps": 20, "lbfgs_steps": 10 ** 6, "precision": "float64"}
+    sol = SOLVERS["pinn_hard"](params=params).solve(prob.public(), Budget(train_time=1.5), ctx)
     assert sol.info["stopped"] == "time_cap" and sol.info["lbfgs_iterations"] > 0
     assert math.isfinite(sol.info["final_loss"])
 
