@@ -7,8 +7,8 @@ that the harness uses for errors.
 """
 from __future__ import annotations
 
+import abc
 import dataclasses
-from functools import cached_property
 
 import numpy as np
 
@@ -45,28 +45,30 @@ def gauss_legendre_panels(a: float, b: float, panels: int, order: int):
     return x, w
 
 
-class Domain:
-    """Base class: subclasses set `kind` and implement the geometric queries."""
+class Domain(abc.ABC):
+    """Base class: subclasses set `kind` and implement the abstract geometric queries."""
 
     kind: str = ""
     dim: int = 2
 
     # geometry --------------------------------------------------------------------------------
     @property
+    @abc.abstractmethod
     def bbox(self) -> tuple[float, float, float, float]:
-        raise NotImplementedError
+        """(x0, x1, y0, y1) of the bounding box."""
 
     @property
+    @abc.abstractmethod
     def area(self) -> float:
-        raise NotImplementedError
+        """Area of the domain."""
 
     def contains(self, points: np.ndarray, tol: float = 0.0) -> np.ndarray:
         """True for points inside or within `tol` of the closed domain."""
         return self.distance(points) >= -tol
 
+    @abc.abstractmethod
     def distance(self, points: np.ndarray) -> np.ndarray:
         """Signed distance to the boundary, positive inside."""
-        raise NotImplementedError
 
     def phi(self, points: np.ndarray) -> np.ndarray:
         """Smooth-ish distance function for hard boundary conditions: 0 on the boundary, max 1."""
@@ -74,8 +76,9 @@ class Domain:
         return d / self.inradius
 
     @property
+    @abc.abstractmethod
     def inradius(self) -> float:
-        raise NotImplementedError
+        """Largest distance from the boundary inside (normalises `phi`)."""
 
     @property
     def scale(self) -> float:
@@ -96,16 +99,16 @@ class Domain:
             out = np.vstack([out, cand[self.distance(cand) > 0]])
         return out[:n]
 
+    @abc.abstractmethod
     def sample_boundary(self, n: int, rng: np.random.Generator | None = None):
         """`n` boundary points and outward unit normals; uniform in arc length.
 
         With ``rng=None`` the points are equispaced in arc length (deterministic).
         """
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def quadrature(self, level: int = 48) -> tuple[np.ndarray, np.ndarray]:
         """Quadrature points and weights for integrals over the domain."""
-        raise NotImplementedError
 
     def eval_set(self, seed: int = 0, level: int = 48, n_extra: int = 2000) -> EvalSet:
         """The seeded evaluation set: quadrature rule plus random points for max errors."""
@@ -113,12 +116,13 @@ class Domain:
         extra = self.sample_interior(n_extra, np.random.default_rng(seed))
         return EvalSet(pts, w, extra)
 
+    @abc.abstractmethod
     def extend_boundary_data(self, g, points: np.ndarray) -> np.ndarray:
         """A smooth extension into the domain of boundary data `g`, querying `g` on the boundary only."""
-        raise NotImplementedError
 
+    @abc.abstractmethod
     def to_dict(self) -> dict:
-        raise NotImplementedError
+        """The domain's config mapping (kind and geometry), for records."""
 
 
 @dataclasses.dataclass(frozen=True)
