@@ -151,6 +151,13 @@ def _real_series(c: np.ndarray, zeta: np.ndarray) -> np.ndarray:
 # Disk
 # ------------------------------------------------------------------------------------------
 
+
+def polar(points, cx: float, cy: float):
+    """Radius and angle in [0, 2 pi) of points about the centre (cx, cy)."""
+    p = np.asarray(points, dtype=float)
+    dx, dy = p[:, 0] - cx, p[:, 1] - cy
+    return np.hypot(dx, dy), np.mod(np.arctan2(dy, dx), 2 * np.pi)
+
 @dataclasses.dataclass(frozen=True)
 class Disk(Domain):
     """Disk of centre (cx, cy) and radius `radius`."""
@@ -178,9 +185,7 @@ class Disk(Domain):
 
     def polar(self, points):
         """Radius and angle in [0, 2 pi) about the centre."""
-        p = np.asarray(points, dtype=float)
-        dx, dy = p[:, 0] - self.cx, p[:, 1] - self.cy
-        return np.hypot(dx, dy), np.mod(np.arctan2(dy, dx), 2 * np.pi)
+        return polar(points, self.cx, self.cy)
 
     def distance(self, points):
         r, _ = self.polar(points)
@@ -274,9 +279,8 @@ class Annulus(Domain):
         return 0.5 * (self.r_out - self.r_in)
 
     def polar(self, points):
-        p = np.asarray(points, dtype=float)
-        dx, dy = p[:, 0] - self.cx, p[:, 1] - self.cy
-        return np.hypot(dx, dy), np.mod(np.arctan2(dy, dx), 2 * np.pi)
+        """Radius and angle in [0, 2 pi) about the centre."""
+        return polar(points, self.cx, self.cy)
 
     def distance(self, points):
         r, _ = self.polar(points)
