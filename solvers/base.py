@@ -212,4 +212,6 @@ class Solver:
         return sol
 
     def _solve(self, problem, budget: Budget, ctx: RunContext) -> Solution:  # pragma: no cover
+        # Deliberate: the one private hook every family overrides (rule 2 of the module
+        # docstring); plug-ins without it are refused at load time by bench.plugins.
         raise NotImplementedError(f"{type(self).__name__} must implement _solve")
