@@ -123,6 +123,51 @@ def test_network_laplacian_matches_finite_differences(activation, fourier):
         np.testing.assert_allclose(lap.detach().numpy(), lap_fd, rtol=0, atol=1e-6 * scale, err_msg=method)
 
 
+@pytest.mark.parametrize("activation", ["tanh", "sin", "silu"])
+@pytest.mark.parametrize("order", [1, 2])
+def test_stream_activation_backward_passes_gradcheck(activation, order):
+    """The hand-written backward of solvers/pinn/streams.py against central differences of its
+    own forward (torch.autograd.gradcheck, float64, its default eps 1e-6 and tolerances), for the
+    stacked layer and the first layer (gradient rows shared by all points)."""
+    from solvers.pinn.streams import activate_first, activate_stacked
+
+    gen = torch.Generator().manual_seed(11)
+    k = 2 + order
+    Z = torch.randn(k, 6, 4, dtype=torch.float64, generator=gen, requires_grad=True)
+    b = torch.randn(4, dtype=torch.float64, generator=gen, requires_grad=True)
+    assert torch.autograd.gradcheck(lambda Z, b: activate_stacked(activation, Z, b, order), (Z, b))
+    z = torch.randn(6, 4, dtype=torch.float64, generator=gen, requires_grad=True)
+    gz = torch.randn(2, 1, 4, dtype=torch.float64, generator=gen, requires_grad=True)
+    assert torch.autograd.gradcheck(lambda z, gz: activate_first(activation, z, gz, order), (z, gz))
+
+
+@pytest.mark.parametrize("activation", ["tanh", "sin", "silu"])
+@pytest.mark.parametrize("fourier", [0, 4])
+def test_weight_gradients_of_forward_laplacian_match_nested_autograd(activation, fourier):
+    """d/dtheta of a strong-form loss through the forward Laplacian (custom backward) equals the
+    same derivative through nested torch.autograd.grad (an independent route: torch's own
+    second derivatives), float64, to rounding; likewise for the first-order (Ritz) streams."""
+    gen = torch.Generator().manual_seed(5)
+    net = Network((0.0, 1.0, 0.0, 2.0), 10, 3, activation, fourier, 0.5, torch.float64, gen)
+    x = torch.rand(50, 2, dtype=torch.float64, generator=gen) * torch.tensor([1.0, 2.0], dtype=torch.float64)
+    f = torch.sin(x[:, 0]) * x[:, 1]
+    grads = {}
+    for method in ("forward", "autograd"):
+        net.zero_grad()
+        u, g, lap = net.derivatives(x, 2, method)
+        ((lap + f) ** 2 + u * g[:, 0] - g[:, 1] ** 2).mean().backward()
+        grads[method] = [p.grad.clone() for p in net.parameters()]
+    for a, r in zip(grads["forward"], grads["autograd"]):
+        np.testing.assert_allclose(a.numpy(), r.numpy(), rtol=1e-10, atol=1e-12)
+    for method in ("forward", "autograd"):
+        net.zero_grad()
+        u, g, _ = net.derivatives(x, 1, method)
+        (0.5 * (g * g).sum(1) - f * u).mean().backward()
+        grads[method] = [p.grad.clone() for p in net.parameters()]
+    for a, r in zip(grads["forward"], grads["autograd"]):
+        np.testing.assert_allclose(a.numpy(), r.numpy(), rtol=1e-10, atol=1e-12)
+
+
 def test_boundary_function_derivatives_closed_form():
     """FD derivatives of phi on the unit square, also with one-sided stencils at the edges:
     phi = 16 x(1-x) y(1-y) (bench.domains.Rectangle.phi), grad and Laplacian in closed form,

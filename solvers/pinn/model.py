@@ -9,8 +9,10 @@ Laplacian", Nature Machine Intelligence 6 (2024) [memory for the venue]). For a 
     grad z = W grad a,    lap z = W lap a,
     grad a' = sigma'(z) grad z,    lap a' = sigma'(z) lap z + sigma''(z) |grad z|^2,
 
-so the gradient and Laplacian of the output cost d + 1 extra rows in each matrix product, and
-backpropagation to the weights goes through this one graph. The nested autograd and torch.func
+so the gradient and Laplacian of the output cost d + 1 extra rows in each matrix product. The
+d + 2 streams are stacked in one (d + 2, n, width) tensor, so each layer is one matrix product,
+and the activation of the streams is one autograd node with a hand-derived backward
+(`solvers.pinn.streams`). The nested autograd and torch.func
 routes are kept for cross-checking and for the benchmark in ``bench/perf/pinn_step.py``, which
 measures all three on this machine.
 
@@ -25,31 +27,15 @@ import torch
 from torch import nn
 
 from solvers.pinn.solver import ACTIVATIONS, LAPLACIAN_METHODS
+from solvers.pinn.streams import activate_first, activate_stacked
 
-__all__ = ["Network", "ACTIVATIONS", "LAPLACIAN_METHODS", "activation_derivatives", "torch_dtype"]
+__all__ = ["Network", "ACTIVATIONS", "LAPLACIAN_METHODS", "torch_dtype"]
 
 
 
 def torch_dtype(precision: str) -> torch.dtype:
     """``float32`` or ``float64`` as a torch dtype."""
     return {"float32": torch.float32, "float64": torch.float64}[precision]
-
-
-def activation_derivatives(name: str, z: torch.Tensor):
-    """``(sigma(z), sigma'(z), sigma''(z))`` for the activation `name`, in closed form."""
-    if name == "tanh":
-        t = torch.tanh(z)
-        s1 = 1.0 - t * t
-        return t, s1, -2.0 * t * s1
-    if name == "sin":
-        s = torch.sin(z)
-        return s, torch.cos(z), -s
-    if name == "silu":
-        # silu(z) = z sigmoid(z): smooth, ReLU-like for large |z|
-        sg = torch.sigmoid(z)
-        one_m = 1.0 - sg
-        return z * sg, sg * (1.0 + z * one_m), sg * one_m * (2.0 + z * (1.0 - 2.0 * sg))
-    raise ValueError(f"unknown activation {name!r}; valid: {', '.join(ACTIVATIONS)}")
 
 
 def _activation(name: str):
@@ -143,37 +129,38 @@ class Network(nn.Module):
     def _forward_derivatives(self, x, order):
         d = self.dim
         v = (x - self.center) * self.scale
-        # G: d gradient rows (d, n, width); L: Laplacian row (n, width). Until the first
-        # nonlinearity both are the same for every point, so G starts as (d, 1, width) and
-        # broadcasts (this alone halves the step time against carrying (d, n, d) identities).
-        G = L = None
-        if self.fourier is not None:
-            z = v @ self.fourier.T
-            G0 = (self.scale[:, None] * self.fourier.T)[:, None, :]       # (d, 1, m)
-            c, s = torch.cos(z), torch.sin(z)
-            v = torch.cat([c, s], dim=-1)
-            G = torch.cat([-s * G0, c * G0], dim=-1)
+        k = d + order                       # streams: value, d gradient rows, [Laplacian]
+        if self.fourier is None:
+            # before the first nonlinearity the gradient rows are the same for every point
+            # (scale_i W[:, i]) and the Laplacian is zero: the first activation takes them as such
+            lin = self.layers[0]
+            z = nn.functional.linear(v, lin.weight, lin.bias)
+            gz = (self.scale[:, None] * lin.weight.T)[:, None, :]             # (d, 1, width)
+            S = activate_first(self.activation, z, gz, order)
+        else:
+            # Fourier features are fixed: their streams carry no gradient to the weights
+            zf = v @ self.fourier.T
+            G0 = (self.scale[:, None] * self.fourier.T)[:, None, :]           # (d, 1, m)
+            c, s = torch.cos(zf), torch.sin(zf)
+            streams = [torch.cat([c, s], dim=-1)[None], torch.cat([-s * G0, c * G0], dim=-1)]
             if order == 2:
-                sq = (G0 * G0).sum(0)                                      # (1, m)
-                L = torch.cat([-c * sq, -s * sq], dim=-1)
-        for lin in self.layers[:-1]:
-            W = lin.weight
-            z = nn.functional.linear(v, W, lin.bias)
-            if G is None:
-                G = (self.scale[:, None] * W.T)[:, None, :]                # (d, 1, width)
-            else:
-                G = G @ W.T
-                if order == 2:
-                    L = L @ W.T
-            v, s1, s2 = activation_derivatives(self.activation, z)
-            if order == 2:
-                curv = s2 * (G * G).sum(0)
-                L = curv if L is None else torch.addcmul(curv, s1, L)
-            G = s1 * G
+                sq = (G0 * G0).sum(0)
+                streams.append(torch.cat([-c * sq, -s * sq], dim=-1)[None])
+            S = torch.cat(streams).to(v.dtype)
+            lin = self.layers[0]
+            Z = (S.reshape(-1, S.shape[-1]) @ lin.weight.T).view(k, len(x), -1)
+            S = activate_stacked(self.activation, Z, lin.bias, order)
+        n = S.shape[1]
+        for lin in self.layers[1:-1]:
+            Z = (S.view(k * n, -1) @ lin.weight.T).view(k, n, -1)
+            S = activate_stacked(self.activation, Z, lin.bias, order)
         last = self.layers[-1]
-        u = last(v).squeeze(-1)
-        grad = (G @ last.weight.T).squeeze(-1).T                           # (n, d)
-        lap = (L @ last.weight.T).squeeze(-1) if order == 2 else None
+        # a matrix-vector product: its backward is a broadcast outer product, where a
+        # (k n, 1) x (1, width) matrix product would be an order of magnitude slower
+        Y = torch.mv(S.view(k * n, -1), last.weight[0]).view(k, n)
+        u = Y[0] + last.bias
+        grad = Y[1:d + 1].T                                                      # (n, d)
+        lap = Y[d + 1] if order == 2 else None
         return u, grad, lap
 
     def _autograd_derivatives(self, x, order):
