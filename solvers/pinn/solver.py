@@ -201,12 +201,13 @@ def retain_freed_memory() -> bool:
     """Let glibc keep freed blocks below 256 MiB in the heap instead of returning them.
 
     A training step allocates and frees tensors of 0.5-4 MB each (above glibc's default mmap
-    threshold), so by default every step maps fresh pages and the kernel zero-fills them on first
-    touch: measured about 500 (float32) to 1 000 (float64) minor page faults per step of the
-    4 x 50 network on 2 500 points, and 10-35 % of the step time (`bench/perf/pinn_step.py`).
-    With these settings the freed memory is reused and faults drop to a handful per step. The
-    process peak is unchanged (blocks are reused, not added); it is a process-wide setting, made
-    in the forked case process. Returns False where mallopt is unavailable (not glibc).
+    threshold), so by default many steps map fresh pages that the kernel zero-fills on first
+    touch. Measured on the development machine, 4 x 50 network: 400-1 300 minor page faults per
+    step on 2 500 points by default, a handful with this setting; 600 Adam steps of `pinn_hard`
+    on 2 000 points took 9.2-9.8 s against 10.2-10.5 s (two runs each, alternating; timings on
+    this machine vary by 10-20 % between runs). It is a process-wide setting, made in the forked
+    case process; freed blocks are reused rather than returned, so the peak does not grow.
+    Returns False where mallopt is unavailable (not glibc).
     """
     import ctypes
     import ctypes.util
