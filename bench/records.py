@@ -71,7 +71,38 @@ def write_atomic(path: str | Path, text: str) -> Path:
             os.close(dfd)
     except OSError:
         pass
+    remove_stale_temporaries(path.parent)
     return path
+
+
+STALE_TEMPORARY_S = 600.0
+
+
+def remove_stale_temporaries(folder: str | Path, max_age: float = STALE_TEMPORARY_S) -> list[Path]:
+    """Delete ``.tmp-*.json`` files older than `max_age` seconds in `folder`; return them.
+
+    A writer killed between mkstemp and os.replace (kill -9, power loss) leaves its temporary
+    behind; loaders ignore such files, and the next successful write into the same folder removes
+    them. A live writer holds its temporary for milliseconds, so ten minutes cannot hit one.
+    """
+    import time
+
+    removed = []
+    now = time.time()
+    try:
+        entries = list(os.scandir(folder))
+    except OSError:
+        return removed
+    for entry in entries:
+        if not (entry.name.startswith(".tmp-") and entry.name.endswith(".json")):
+            continue
+        try:
+            if now - entry.stat().st_mtime > max_age:
+                os.unlink(entry.path)
+                removed.append(Path(entry.path))
+        except OSError:        # gone already (another writer removed it) or not ours
+            pass
+    return removed
 
 
 def write_record(path: str | Path, record: dict) -> Path:

@@ -187,9 +187,17 @@ class Solver:
     def _supports(self, problem) -> tuple[bool, str]:
         return True, ""
 
+    # modules a case may import lazily inside its timed phases; `preload` imports them in the
+    # harness parent, so that every forked case finds them loaded (not only the ones after it)
+    preload_modules: ClassVar[tuple[str, ...]] = ()
+
     @classmethod
     def preload(cls) -> None:
         """Import heavy modules in the harness parent so that isolated cases do not pay for them."""
+        import importlib
+
+        for module in cls.preload_modules:
+            importlib.import_module(module)
 
     def resolution(self) -> dict:
         """The resolution knobs of this run, copied into records (e.g. ``{"n": 64}``)."""

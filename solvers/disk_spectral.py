@@ -42,6 +42,7 @@ class DiskChebyshev(Solver):
 
     name = "disk_cheb"
     family = "spectral"
+    preload_modules = ("scipy.linalg", "solvers.eigen")
     description = "Chebyshev (radius) x Fourier (angle) collocation on a disk, mode by mode"
     reference = "Trefethen, Spectral Methods in MATLAB, SIAM 2000, ch. 11; Fornberg 1996"
     Params = DiskChebParams

@@ -34,6 +34,8 @@ class FDParams:
 
 class _SparseFD(Solver):
     family = "fd"
+    # AMG (linalg, masked), eigensolvers (eigen), Shortley-Weller grids and their interpolant
+    preload_modules = ("pyamg", "scipy.linalg", "scipy.spatial", "solvers.eigen", "solvers.masked")
     compact = False
     Params = FDParams
     tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=frozenset({"rectangle"}))

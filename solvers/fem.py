@@ -274,10 +274,8 @@ class _FEM(Solver):
     Params = FEMParams
     tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=FEM_DOMAINS)
 
-    @classmethod
-    def preload(cls) -> None:
-        import pyamg  # noqa: F401  (imports cost about 0.5 s each; paid once in the parent)
-        import skfem  # noqa: F401
+    # skfem and pyamg cost about 0.5 s to import; eigenproblems use solvers.eigen and scipy.linalg
+    preload_modules = ("pyamg", "skfem", "skfem.helpers", "scipy.linalg", "solvers.eigen")
 
     def effective_level(self, domain) -> int:
         """`level`, or the smallest level whose largest edge is at most `h`."""

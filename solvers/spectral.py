@@ -72,6 +72,7 @@ class Chebyshev(Solver):
 
     name = "cheb"
     family = "spectral"
+    preload_modules = ("scipy.linalg", "solvers.eigen")
     description = "Chebyshev collocation, matrix diagonalisation, barycentric interpolant"
     reference = "Trefethen, Spectral Methods in MATLAB, SIAM 2000; Haidvogel & Zang, JCP 30 (1979)"
     Params = ChebParams

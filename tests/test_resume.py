@@ -156,3 +156,20 @@ def test_eight_concurrent_writers_lose_nothing(tmp_path):
     assert len(files) == len(SHARED) + 8 and all(r is not None for r in recs)
     assert sorted(r["seed"] for r in recs if r["problem"]["label"] == "harmonic") == list(range(8))
     assert not list((tmp_path / "runs").glob(".tmp-*")), "temporary files left behind"
+
+
+def test_stale_temporaries_are_removed_by_the_next_write(tmp_path):
+    """A writer killed between mkstemp and os.replace leaves a .tmp-*.json; the next record
+    written into that folder removes it once it is older than STALE_TEMPORARY_S, while a fresh
+    one (a live writer's) and other files are left alone."""
+    from bench.records import STALE_TEMPORARY_S, write_atomic
+
+    stale, live, other = (tmp_path / n for n in (".tmp-killed.json", ".tmp-live.json", "keep.json"))
+    for p in (stale, live, other):
+        p.write_text("{")
+    old = time.time() - STALE_TEMPORARY_S - 60
+    os.utime(stale, (old, old))
+    os.utime(other, (old, old))
+    write_atomic(tmp_path / "new.json", "{}")
+    assert not stale.exists()
+    assert live.exists() and other.exists() and (tmp_path / "new.json").read_text() == "{}"
