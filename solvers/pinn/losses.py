@@ -59,17 +59,16 @@ class Loss:
     area: float = 1.0               # |Omega| for the Ritz energy
 
     def solution(self, net, batch: Batch, order: int):
-        """``(u, grad u, Lap u)`` of the boundary-treated solution at the batch points."""
+        """``(u, grad u, None)`` (order 1) or ``(u, None, Lap u)`` (order 2) of the
+        boundary-treated solution at the batch points (the losses need no more)."""
         N, gN, lN = net.derivatives(batch.x, order, self.laplacian)
         if not self.hard:
-            return N, gN, lN
+            return (N, gN, None) if order == 1 else (N, None, lN)
         u = batch.g + batch.phi * N
-        gu = batch.grad_g + N[:, None] * batch.grad_phi + batch.phi[:, None] * gN
-        lu = None
-        if order == 2:
-            lu = (batch.lap_g + N * batch.lap_phi + 2.0 * (batch.grad_phi * gN).sum(1)
-                  + batch.phi * lN)
-        return u, gu, lu
+        if order == 1:
+            return u, batch.grad_g + N[:, None] * batch.grad_phi + batch.phi[:, None] * gN, None
+        lu = batch.lap_g + N * batch.lap_phi + 2.0 * (batch.grad_phi * gN).sum(1) + batch.phi * lN
+        return u, None, lu
 
     def residual(self, net, batch: Batch) -> torch.Tensor:
         """Pointwise strong-form residual Lap u + f (for adaptive refinement)."""
