@@ -32,9 +32,12 @@ __all__ = ["Disk", "Annulus", "Polygon", "LSHAPE_VERTICES", "lshape", "triangle_
 # re-entrant corner (interior angle 3 pi / 2) is the origin.
 LSHAPE_VERTICES = [[-1.0, -1.0], [0.0, -1.0], [0.0, 0.0], [1.0, 0.0], [1.0, 1.0], [-1.0, 1.0]]
 
-# Largest harmonic-extension Fourier size; 4096 samples resolve any data smooth enough to be
-# worth extending (the boundary correction makes the extension exact on the boundary anyway).
-_MAX_FOURIER = 4096
+# Boundary-data extensions (hard boundary conditions) must be smooth and exact on the boundary,
+# and must not solve the problem: a harmonic extension of Laplace data IS the solution, which
+# would hand a hard-boundary network the answer (tests/test_shapes.py checks every kind).
+# Disk: the data are continued along rays and blended to their mean inside this radius fraction.
+DISK_BLEND_INNER = 0.25
+_MEAN_POINTS = 512          # trapezoid rule for the mean of the data on a circle
 
 
 def lshape() -> "Polygon":
@@ -117,34 +120,22 @@ def _graded_corner_rule(tri: np.ndarray, n: int, layers: int, sigma: float = 0.1
 
 
 # ------------------------------------------------------------------------------------------
-# Harmonic extension of circle data (disk, annulus)
+# Extension of circle data (disk, annulus)
 # ------------------------------------------------------------------------------------------
 
-def _circle_coefficients(g, cx: float, cy: float, radius: float) -> np.ndarray:
-    """Complex Fourier coefficients c_k (k = 0..M/2) of g on a circle, M doubled until resolved.
-
-    Trapezoid rule / FFT, exponentially accurate for smooth periodic data (Trefethen &
-    Weideman, "The exponentially convergent trapezoidal rule", SIAM Review 56, 2014).
-    """
-    M = 64
-    while True:
-        th = 2 * np.pi * np.arange(M) / M
-        vals = np.asarray(g(np.column_stack([cx + radius * np.cos(th), cy + radius * np.sin(th)])), float)
-        c = np.fft.rfft(vals) / M
-        tail = np.abs(c[-max(2, len(c) // 4):]).max()
-        if tail <= 1e-14 * max(np.abs(c).max(), 1e-300) or M >= _MAX_FOURIER:
-            return c
-        M *= 2
+def _smoothstep(t: np.ndarray) -> np.ndarray:
+    """0 for t <= 0, 1 for t >= 1, t^3 (10 - 15 t + 6 t^2) between: C2, so the Laplacian of a
+    blend with it stays continuous [common practice]."""
+    t = np.clip(t, 0.0, 1.0)
+    return t * t * t * (10.0 + t * (-15.0 + 6.0 * t))
 
 
-def _real_series(c: np.ndarray, zeta: np.ndarray) -> np.ndarray:
-    """Re sum_k chat_k zeta^k with chat_0 = c_0, chat_k = 2 c_k (Horner, vectorised over points)."""
-    M = 2 * (len(c) - 1)
-    chat = 2 * c.copy()
-    chat[0] = c[0]
-    if M > 0:
-        chat[-1] = c[-1]  # Nyquist term counted once
-    return np.real(np.polynomial.polynomial.polyval(zeta, chat))
+def _circle_mean(g, cx: float, cy: float, radius: float) -> float:
+    """Mean of g on a circle by the trapezoid rule, exponentially accurate for smooth periodic
+    data (Trefethen & Weideman, "The exponentially convergent trapezoidal rule", SIAM Review 56,
+    2014)."""
+    th = 2 * np.pi * np.arange(_MEAN_POINTS) / _MEAN_POINTS
+    return float(np.mean(np.asarray(g(np.column_stack([cx + radius * np.cos(th), cy + radius * np.sin(th)])), float)))
 
 
 # ------------------------------------------------------------------------------------------
@@ -223,23 +214,23 @@ class Disk(Domain):
         return pts, np.outer(wr * r, np.full(m, 2 * np.pi / m)).ravel()
 
     def extend_boundary_data(self, g, points):
-        """Harmonic extension (Poisson integral) of g plus a radial correction exact on the circle.
+        """The data continued along rays, blended to their mean towards the centre:
 
-        H = Re sum_k chat_k zeta^k, zeta = (z - c)/R, with the Fourier coefficients of g from the
-        trapezoid rule (FFT), is the Poisson integral of the trigonometric interpolant of g
-        (harmonic, real-analytic). The term rho^2 (g(P x) - H(P x)), with P the radial projection
-        onto the circle, removes the interpolation residual so that the extension equals g on
-        the circle exactly. g is queried on the circle only.
+            g_ext(x) = gbar + s((rho - rho0) / (1 - rho0)) (g(P x) - gbar),
+
+        with rho = |x - c| / R, P x the radial projection onto the circle, gbar the mean of g on
+        the circle, s the C2 smoothstep and rho0 = DISK_BLEND_INNER: equal to g on the circle,
+        constant near the centre (where the angle is undefined), smooth, and not harmonic (it
+        does not solve a Laplace problem for the solver). g is queried on the circle only.
         """
         p = np.asarray(points, dtype=float)
-        c = _circle_coefficients(g, self.cx, self.cy, self.radius)
-        zeta = ((p[:, 0] - self.cx) + 1j * (p[:, 1] - self.cy)) / self.radius
-        H = _real_series(c, zeta)
-        rho, th = np.abs(zeta), np.angle(zeta)
-        e = np.exp(1j * th)
-        proj = np.column_stack([self.cx + self.radius * e.real, self.cy + self.radius * e.imag])
-        resid = np.asarray(g(proj), float) - _real_series(c, e)
-        return H + rho ** 2 * resid
+        dx, dy = p[:, 0] - self.cx, p[:, 1] - self.cy
+        r = np.hypot(dx, dy)
+        th = np.arctan2(dy, dx)
+        proj = np.column_stack([self.cx + self.radius * np.cos(th), self.cy + self.radius * np.sin(th)])
+        mean = _circle_mean(g, self.cx, self.cy, self.radius)
+        blend = _smoothstep((r / self.radius - DISK_BLEND_INNER) / (1.0 - DISK_BLEND_INNER))
+        return mean + blend * (np.asarray(g(proj), float) - mean)
 
     def to_dict(self):
         return {"kind": self.kind, "cx": self.cx, "cy": self.cy, "radius": self.radius}
@@ -329,43 +320,23 @@ class Annulus(Domain):
         return pts, np.outer(wr * r, np.full(m, 2 * np.pi / m)).ravel()
 
     def extend_boundary_data(self, g, points):
-        """Harmonic extension of the data on both circles plus a radial correction exact on them.
+        """The data of both circles continued along rays and blended linearly in the radius,
 
-        Mode by mode (Fourier coefficients of g on each circle by the trapezoid rule), the
-        harmonic function matching both circles: for k = 0, A + B log r; for k >= 1 the
-        combination of r^k and r^-k written with ratios (r/b)^k, (a/r)^k <= 1 so nothing
-        overflows. A residual term linear in r makes the extension equal g on both circles
-        exactly. g is queried on the two circles only.
+            g_ext = (1 - w) g(c + r_in e) + w g(c + r_out e),   w = (r - r_in) / (r_out - r_in),
+
+        e the direction of x from the centre: equal to g on both circles, smooth, and not
+        harmonic (it does not solve a Laplace problem for the solver). g is queried on the two
+        circles only.
         """
         p = np.asarray(points, dtype=float)
         a, b = self.r_in, self.r_out
-        ci = _circle_coefficients(g, self.cx, self.cy, a)
-        co = _circle_coefficients(g, self.cx, self.cy, b)
-        K = max(len(ci), len(co))
-        ci = np.pad(ci, (0, K - len(ci)))
-        co = np.pad(co, (0, K - len(co)))
         dx, dy = p[:, 0] - self.cx, p[:, 1] - self.cy
         r = np.hypot(dx, dy)
         th = np.arctan2(dy, dx)
-
-        def series(rv, thv):
-            out = np.real(co[0] * np.log(rv / a) / np.log(b / a) + ci[0] * np.log(b / rv) / np.log(b / a))
-            q2 = (a / b) ** 2
-            for k in range(1, K):
-                mult = 1.0 if (k == K - 1 and K > 1) else 2.0  # Nyquist term counted once
-                den = 1 - q2 ** k
-                fo = ((rv / b) ** k - (a * a / (rv * b)) ** k) / den
-                fi = ((a / rv) ** k - (a * rv / (b * b)) ** k) / den
-                out += mult * np.real((co[k] * fo + ci[k] * fi) * np.exp(1j * k * thv))
-            return out
-
-        H = series(r, th)
         e = np.column_stack([np.cos(th), np.sin(th)])
         c0 = np.array([self.cx, self.cy])
-        res_out = np.asarray(g(c0 + b * e), float) - series(np.full(len(p), b), th)
-        res_in = np.asarray(g(c0 + a * e), float) - series(np.full(len(p), a), th)
         w = (r - a) / (b - a)
-        return H + w * res_out + (1 - w) * res_in
+        return (1 - w) * np.asarray(g(c0 + a * e), float) + w * np.asarray(g(c0 + b * e), float)
 
     def to_dict(self):
         return {"kind": self.kind, "cx": self.cx, "cy": self.cy, "r_in": self.r_in, "r_out": self.r_out}
@@ -742,35 +713,63 @@ class Polygon(Domain):
         return np.vstack(pts_all), np.concatenate(w_all)
 
     def extend_boundary_data(self, g, points):
-        """Transfinite blend of the edge data: sum_i w_i g(P_i x), w_i = phi_i^-2 / sum_j phi_j^-2.
+        """Transfinite blend of the edge data: sum_i w_i G_i(x), w_i = phi_i^-2 / sum_j phi_j^-2.
 
-        P_i x is the closest point of edge i, phi_i the edge's R-function distance (Sukumar &
-        Srivastava, CMAME 389, 2022, sec. 5, transfinite interpolation after Rvachev et al.,
-        "Transfinite interpolation over implicitly defined sets", CAGD 18, 2001, with
-        inverse-distance weights). On edge i, w_i = 1 and the blend equals g; it is continuous
-        everywhere and smooth away from the normals through the vertices. g is queried on the
-        edges only.
+        phi_i is the edge's R-function distance (Sukumar & Srivastava, CMAME 389, 2022, sec. 5,
+        transfinite interpolation after Rvachev et al., "Transfinite interpolation over
+        implicitly defined sets", CAGD 18, 2001, with inverse-distance weights). G_i is the data
+        of edge i as a function of the parameter s of the edge's line (s = 0 at its first vertex,
+        1 at its second): g itself for s in [0, 1], and beyond the ends its second-order Taylor
+        polynomial at the end (derivatives along the edge by one-sided differences of g on the
+        edge). Evaluating g at the closest point of the segment instead (clamping s) leaves a
+        kink along the normals through the vertices, whose Laplacian is a line of Dirac mass
+        that a hard-boundary network has to fight; the Taylor continuation is C2 there. On edge
+        i, w_i = 1 and the blend equals g. g is queried on the edges only.
         """
         p = np.asarray(points, dtype=float)
         out = np.empty(len(p))
         A, B = self.edges
         d = B - A
         L = np.linalg.norm(d, axis=1)
+        L2 = L * L
         xc = 0.5 * (A + B)
         E = len(A)
+        ends = self._edge_taylor(g)                                         # (E, 2, 3)
         chunk = max(1, 200_000 // E)
-        for s in range(0, len(p), chunk):
-            q = p[s:s + chunk]
-            _, proj = self._segment_geometry(q)
-            G = np.asarray(g(proj.reshape(-1, 2)), float).reshape(len(q), E)
+        for c in range(0, len(p), chunk):
+            q = p[c:c + chunk]
+            s = ((q[:, None, :] - A[None]) * d[None]).sum(-1) / L2[None]      # (m, E)
+            sc = np.clip(s, 0.0, 1.0)
+            G = np.asarray(g((A[None] + sc[..., None] * d[None]).reshape(-1, 2)), float).reshape(len(q), E)
+            for end, side in ((0, s < 0.0), (1, s > 1.0)):
+                ds = np.where(side, s - end, 0.0)
+                G += ds * ends[None, :, end, 1] + 0.5 * ds * ds * ends[None, :, end, 2]
             f = _cross(d[None], q[:, None, :] - A[None]) / L[None]
             t = ((0.5 * L[None]) ** 2 - ((q[:, None, :] - xc[None]) ** 2).sum(-1)) / L[None]
             phi_i = np.sqrt(f ** 2 + (0.5 * (np.sqrt(t ** 2 + f ** 4) - t)) ** 2)
             pmin = phi_i.min(axis=1, keepdims=True)
             with np.errstate(divide="ignore", invalid="ignore"):
                 w = np.where(pmin > 0, (pmin / phi_i) ** 2, (phi_i == 0).astype(float))
-            out[s:s + chunk] = (w * G).sum(axis=1) / w.sum(axis=1)
+            out[c:c + chunk] = (w * G).sum(axis=1) / w.sum(axis=1)
         return out
+
+    def _edge_taylor(self, g, h: float = 1e-3) -> np.ndarray:
+        """(E, 2, 3): g and its first two derivatives in the edge parameter s at both ends.
+
+        One-sided differences on the edge with step h in s, second order for both derivatives:
+        g' = (-3 g0 + 4 g1 - g2) / 2h, g'' = (2 g0 - 5 g1 + 4 g2 - g3) / h^2 [common practice];
+        at the second end mirrored (steps towards the first), so the sign of g' flips back.
+        """
+        A, B = self.edges
+        d = B - A
+        k = np.arange(4) * h
+        pts = np.concatenate([A[:, None, :] + k[None, :, None] * d[:, None, :],
+                              B[:, None, :] - k[None, :, None] * d[:, None, :]], axis=1)   # (E, 8, 2)
+        v = np.asarray(g(pts.reshape(-1, 2)), float).reshape(len(A), 2, 4)
+        d1 = (-3 * v[..., 0] + 4 * v[..., 1] - v[..., 2]) / (2 * h)
+        d2 = (2 * v[..., 0] - 5 * v[..., 1] + 4 * v[..., 2] - v[..., 3]) / h ** 2
+        d1[:, 1] *= -1.0                                                      # steps ran backwards
+        return np.stack([v[..., 0], d1, d2], axis=-1)
 
     def to_dict(self):
         return {"kind": self.kind, "vertices": [list(map(float, v)) for v in self.vertices]}

@@ -184,16 +184,25 @@ def test_boundary_function_derivatives_closed_form():
 
 
 def test_boundary_extension_laplacian_on_the_disk():
-    """On the unit disk the extension of harmonic data is harmonic (Poisson integral) up to the
-    correction term, which vanishes for trigonometric-polynomial data: g = x^2 - y^2 = Re z^2
-    has Lap g_ext = 0 and phi = 1 - r^2 has Lap phi = -4 (closed forms)."""
+    """Finite-difference derivatives of the disk's extension (bench.shapes.Disk) against closed
+    forms. On the unit disk g = x^2 - y^2 is cos 2 theta on the circle (mean 0), so
+    g_ext = s(t) cos 2 theta with t = (rho - rho0) / (1 - rho0) and s(t) = 10 t^3 - 15 t^4 + 6 t^5;
+    in polar coordinates Lap g_ext = (s_rr + s_r / rho - 4 s / rho^2) cos 2 theta; and
+    phi = 1 - r^2 has Lap phi = -4."""
+    from bench.shapes import DISK_BLEND_INNER as r0
+
     prob = make_problem({"name": "disk_harmonic"}).public()
     g = lambda p: p[:, 0] ** 2 - p[:, 1] ** 2  # noqa: E731
     prob = dataclasses.replace(prob, g=g)
     x = prob.domain.sample_interior(200, np.random.default_rng(0))
     data = point_data(prob, x, hard=True)
-    np.testing.assert_allclose(data.g, g(x), atol=1e-10)
-    np.testing.assert_allclose(data.lap_g, 0.0, atol=1e-5)
+    rho, th = np.hypot(x[:, 0], x[:, 1]), np.arctan2(x[:, 1], x[:, 0])
+    t = np.clip((rho - r0) / (1 - r0), 0, 1)
+    s = 10 * t ** 3 - 15 * t ** 4 + 6 * t ** 5
+    s_r = (30 * t ** 2 - 60 * t ** 3 + 30 * t ** 4) / (1 - r0)
+    s_rr = (60 * t - 180 * t ** 2 + 120 * t ** 3) / (1 - r0) ** 2
+    np.testing.assert_allclose(data.g, s * np.cos(2 * th), atol=1e-10)
+    np.testing.assert_allclose(data.lap_g, (s_rr + s_r / rho - 4 * s / rho ** 2) * np.cos(2 * th), atol=1e-4)
     np.testing.assert_allclose(data.lap_phi, -4.0, atol=1e-5)
 
 
