@@ -169,6 +169,17 @@ def test_extension_has_a_bounded_laplacian(dom):
     assert np.max(np.abs(laps[0] - laps[1])) < 0.05 * scale
 
 
+@pytest.mark.parametrize("verts", [LSHAPE_VERTICES, TRIANGLE, COMB], ids=["lshape", "triangle", "comb"])
+def test_polygon_extension_reproduces_affine_data(verts):
+    """First-order consistency of the Hermite-type blend: for g = 2 - 3x + 0.5y (affine) every edge
+    term equals g itself, so the extension is g everywhere (closed form), up to the rounding of
+    the one-sided difference derivatives (step 1e-3 in the edge parameter, exact for affine data)."""
+    dom = Polygon(vertices=verts)
+    u = lambda p: 2.0 - 3.0 * p[:, 0] + 0.5 * p[:, 1]  # noqa: E731
+    pts = dom.sample_interior(300, np.random.default_rng(8))
+    np.testing.assert_allclose(dom.extend_boundary_data(_boundary_only(u, dom), pts), u(pts), atol=1e-9)
+
+
 def test_polygon_extension_has_no_kink_along_vertex_normals():
     """Across the line y = 0, x < 0 of the L-shape (the normal through the re-entrant vertex of
     the edge x = 0, -1 <= y <= 0) the second difference of the extension stays O(1) as h shrinks;
