@@ -12,9 +12,8 @@ Laplacian", Nature Machine Intelligence 6 (2024) [memory for the venue]). For a 
 so the gradient and Laplacian of the output cost d + 1 extra rows in each matrix product. The
 d + 2 streams are stacked in one (d + 2, n, width) tensor, so each layer is one matrix product,
 and the activation of the streams is one autograd node with a hand-derived backward
-(`solvers.pinn.streams`). The nested autograd and torch.func
-routes are kept for cross-checking and for the benchmark in ``bench/perf/pinn_step.py``, which
-measures all three on this machine.
+(`solvers.pinn.streams`). The nested autograd and torch.func routes are kept for cross-checking
+and for the benchmark in ``bench/perf/pinn_step.py``, which measures all three on this machine.
 
 This module imports torch at import time; ``solvers.pinn`` imports it only inside the solver.
 """
