@@ -285,7 +285,9 @@ class FourierParams(PINNParams):
     boundary: str = "hard"
     sampling: str = "sobol"
     fourier_features: int = 32
-    fourier_scale: float = 1.0
+    # frequencies per unit of the scaled input [-1, 1]: measured (20 s, seed 0) on sine data with
+    # k = l = 1, 4, 8, scale 0.25 gave rel L2 2.1e-4, 1.3e-3, 0.20 against 0.13, 0.12, 0.74 at 1.0
+    fourier_scale: float = 0.25
 
 
 @dataclasses.dataclass
