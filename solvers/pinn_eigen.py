@@ -13,7 +13,9 @@ rule. Two strategies (`strategy`):
   19 (1982) 1243-1259 [both from memory]). The loss does not depend on the basis of the span, so
   multiple eigenvalues and the ordering of the modes need no special care, and every mode gets the
   whole training time. Measured on the unit square, k = 6, width 24, 20 s: every eigenvalue
-  within 4e-4 relative, where the sequential strategy left modes 4-6 at 7 %, 15 % and 68 %.
+  within 5e-4 relative, where the sequential strategy left modes 4-6 at 2 %, 15 % and 40 %. On
+  the L-shape (singular first mode) it stalls (60 s: 34, 32, 28, 8 % for lambda_1..4; L-BFGS
+  stops early on a failed line search) and the sequential strategy does better (0.3, 9, 14, 15 %).
 - ``sequential``: mode by mode, each minimising its Rayleigh quotient R(u) = int |grad u|^2 /
   int u^2 (the variational (Deep Ritz) formulation of the lowest eigenvalue, E & Yu, "The Deep
   Ritz method", Commun. Math. Stat. 6, 2018) plus an orthogonality penalty against the modes
@@ -66,7 +68,7 @@ class PINNEigenParams:
     activation: str = "tanh"
     precision: str = "float64"
     train_level: int = 12         # quadrature level of the training integrals
-    adam_steps: int = 500         # per mode (sequential) or in all (subspace)
+    adam_steps: int = 200         # per mode (sequential) or in all (subspace); L-BFGS then does the work
     lr: float = 1e-3
     lr_decay: float = 0.1
     lbfgs_steps: int = 200        # per mode (sequential) or in all (subspace)
@@ -238,8 +240,10 @@ class PINNEigen(Solver):
                 where = ", ".join(f"{n} {v}" for n, v in tags.items())
                 raise Diverged(f"loss became {value} at step {s} ({where}, {phase})", s)
 
+        from solvers.pinn.train import Plateau
+
         reason = "completed"
-        best, best_step = math.inf, 0
+        plateau = Plateau(p.patience, p.plateau_tol)
         if p.adam_steps:
             opt = torch.optim.Adam(params, lr=p.lr)
             for i in range(p.adam_steps):
@@ -257,9 +261,7 @@ class PINNEigen(Solver):
                 opt.step()
                 step += 1
                 stats["adam_steps"] += 1
-                if value < best - p.plateau_tol * abs(best):
-                    best, best_step = value, i
-                elif p.patience and i - best_step >= p.patience:
+                if plateau.update(i, value):
                     reason = "plateau"
                     break
         if p.lbfgs_steps and reason != "time_cap":

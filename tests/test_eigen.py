@@ -268,7 +268,7 @@ def test_pinn_eigen_unit_square_lambda1():
 
 def test_pinn_eigen_higher_modes_by_orthogonality():
     """Sequential strategy, k = 3: the double 5 pi^2 is found by the orthogonality penalties;
-    measured relative errors 2.7e-7, 2.1e-5, 1.2e-3 and eigenspace angle 0.016 with this budget
+    measured relative errors 2.2e-7, 7.2e-5, 1.2e-3 and eigenspace angle 0.016 with this budget
     (seed 0); reference 2 pi^2, 5 pi^2, 5 pi^2 in closed form."""
     p = make_problem({"name": "eigen_rect", "k": 3})
     sol = _solve("pinn_eigen", p, strategy="sequential", width=20, depth=2, train_level=16,
@@ -281,15 +281,15 @@ def test_pinn_eigen_higher_modes_by_orthogonality():
 def test_pinn_eigen_subspace_six_modes():
     """Subspace strategy (trace of the Rayleigh quotient), k = 6 on the unit square: reference
     (j^2 + l^2) pi^2 = 2, 5, 5, 8, 10, 10 x pi^2 in closed form. Measured with this budget over
-    seeds 0-4 (7-10 s each): worst relative error 4.7e-4 .. 1.5e-3, worst eigenspace angle
-    0.011 .. 0.023; thresholds about three times the worst. The sequential strategy with the same
+    seeds 0-4 (7-11 s each): worst relative error 4.3e-4 .. 1.5e-3, worst eigenspace angle
+    0.010 .. 0.015; thresholds about three times the worst. The sequential strategy with the same
     steps leaves modes 4-6 at several per cent (module docstring)."""
     p = make_problem({"name": "eigen_rect", "k": 6})
     sol = _solve("pinn_eigen", p, width=16, depth=2, train_level=12, adam_steps=300, lbfgs_steps=100,
                  quad_level=24)
     m = eigen_errors(p, sol, p.eval_set(0))
     assert m["eig_rel_max"] < 5e-3, m["eig_rel"]
-    assert m["mode_angle_max"] < 0.07, m["mode_angle"]
+    assert m["mode_angle_max"] < 0.05, m["mode_angle"]
 
 
 def test_trace_objective_is_the_sum_of_ritz_values_and_refuses_dependent_modes():
@@ -359,3 +359,13 @@ def test_pinn_eigen_unknown_strategy_names_the_field():
 
     with pytest.raises(ConfigError, match=r"strategy.*subspace, sequential"):
         SOLVERS["pinn_eigen"](params={"strategy": "greedy"})
+
+
+def test_pinn_eigen_plateau_does_not_cut_an_improving_adam_phase():
+    """The Adam phase stops on a plateau only after `patience` steps without improvement: a loss
+    falling at every step runs all `adam_steps` (a comparison against an infinite initial best
+    once stopped every phase after exactly `patience` + 1 steps)."""
+    p = make_problem({"name": "eigen_rect", "k": 1})
+    sol = _solve("pinn_eigen", p, width=8, depth=2, train_level=6, adam_steps=60, lbfgs_steps=0,
+                 patience=20, lr=1e-3, quad_level=12)
+    assert sol.info["adam_steps"] == 60 and sol.info["stopped"] == ["completed"]

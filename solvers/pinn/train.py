@@ -20,7 +20,7 @@ from solvers.base import Diverged
 from solvers.pinn.losses import Batch, Boundary, Loss
 from solvers.pinn.sampling import boundary_points, interior_points, point_data
 
-__all__ = ["Collocation", "Schedule", "TrainResult", "train", "CHECKPOINT_FIRST", "CHECKPOINT_GROWTH"]
+__all__ = ["Collocation", "Plateau", "Schedule", "TrainResult", "train", "CHECKPOINT_FIRST", "CHECKPOINT_GROWTH"]
 
 # History checkpoints at training times CHECKPOINT_FIRST * CHECKPOINT_GROWTH^k seconds: about ten
 # per decade of time, enough to read time-to-tolerance off the curve to ~25 % while a 5-minute
@@ -133,7 +133,7 @@ class _Checkpoints:
             self.next *= CHECKPOINT_GROWTH
 
 
-class _Plateau:
+class Plateau:
     """No relative improvement by `tol` for `patience` steps (works for negative energies too)."""
 
     def __init__(self, patience: int, tol: float):
@@ -201,7 +201,7 @@ def train(net, loss: Loss, colloc: Collocation, sched: Schedule, budget, ctx, ev
         # ---- phase 1: Adam -------------------------------------------------------------------
         if sched.adam_steps > 0:
             opt = torch.optim.Adam(net.parameters(), lr=sched.lr)
-            plateau = _Plateau(sched.patience, sched.plateau_tol)
+            plateau = Plateau(sched.patience, sched.plateau_tol)
             for k in range(sched.adam_steps):
                 if ctx.elapsed() - t_start >= cap:
                     res.stopped = "time_cap"
@@ -275,7 +275,7 @@ def _lbfgs(net, loss, colloc, sched, ctx, cap, t_start, res, marks, show, step, 
             raise _OutOfTime
         return total
 
-    plateau = _Plateau(sched.patience, sched.plateau_tol)
+    plateau = Plateau(sched.patience, sched.plateau_tol)
     done_total = 0
     while done_total < sched.lbfgs_steps:
         chunk = min(LBFGS_CHUNK, sched.lbfgs_steps - done_total)
