@@ -268,7 +268,7 @@ def test_pinn_eigen_unit_square_lambda1():
 
 def test_pinn_eigen_higher_modes_by_orthogonality():
     """Sequential strategy, k = 3: the double 5 pi^2 is found by the orthogonality penalties;
-    measured relative errors 2.2e-7, 7.2e-5, 1.2e-3 and eigenspace angle 0.016 with this budget
+    measured relative errors 2.2e-7, 8.2e-6, 2.2e-4 and eigenspace angle 0.010 with this budget
     (seed 0); reference 2 pi^2, 5 pi^2, 5 pi^2 in closed form."""
     p = make_problem({"name": "eigen_rect", "k": 3})
     sol = _solve("pinn_eigen", p, strategy="sequential", width=20, depth=2, train_level=16,
