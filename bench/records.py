@@ -71,8 +71,21 @@ def write_atomic(path: str | Path, text: str) -> Path:
             os.close(dfd)
     except OSError:
         pass
-    remove_stale_temporaries(path.parent)
+    _sweep_once(path.parent)
     return path
+
+
+_SWEPT: set[str] = set()
+
+
+def _sweep_once(folder: Path) -> None:
+    """`remove_stale_temporaries` the first time this process writes into `folder`: leftovers
+    come from writers killed before this process started, so one listing per folder suffices
+    (a sweep writes thousands of records into one folder)."""
+    key = os.fspath(folder)
+    if key not in _SWEPT:
+        _SWEPT.add(key)
+        remove_stale_temporaries(folder)
 
 
 STALE_TEMPORARY_S = 600.0
@@ -82,8 +95,8 @@ def remove_stale_temporaries(folder: str | Path, max_age: float = STALE_TEMPORAR
     """Delete ``.tmp-*.json`` files older than `max_age` seconds in `folder`; return them.
 
     A writer killed between mkstemp and os.replace (kill -9, power loss) leaves its temporary
-    behind; loaders ignore such files, and the next successful write into the same folder removes
-    them. A live writer holds its temporary for milliseconds, so ten minutes cannot hit one.
+    behind; loaders ignore such files, and the first successful write of a later process into
+    the same folder removes them. A live writer holds its temporary for milliseconds, so ten minutes cannot hit one.
     """
     import time
 

@@ -581,15 +581,22 @@ class Polygon(Domain):
             out[s:s + chunk] = np.where(self._inside(q), dmin, -dmin)
         return out
 
-    def _rfun(self, p) -> np.ndarray:
-        """Unnormalised R-function distance (Sukumar & Srivastava, CMAME 389, 2022, eqs. 11-13)."""
+    def _edge_functions(self, p):
+        """Per edge (m, E): parameter s along the edge's line (0 and 1 at its vertices), signed
+        distance f to the line (positive inside), and the trimmed segment function phi_i of
+        Sukumar & Srivastava (CMAME 389, 2022, eqs. 11-13), zero exactly on the segment."""
         A, B = self.edges
         d = B - A
         L = np.linalg.norm(d, axis=1)
         xc = 0.5 * (A + B)
-        f = _cross(d[None], p[:, None, :] - A[None]) / L[None]           # signed distance to the line
+        s = ((p[:, None, :] - A[None]) * d[None]).sum(-1) / (L * L)[None]
+        f = _cross(d[None], p[:, None, :] - A[None]) / L[None]
         t = ((0.5 * L[None]) ** 2 - ((p[:, None, :] - xc[None]) ** 2).sum(-1)) / L[None]
-        phi_i = np.sqrt(f ** 2 + (0.5 * (np.sqrt(t ** 2 + f ** 4) - t)) ** 2)
+        return s, f, np.sqrt(f ** 2 + (0.5 * (np.sqrt(t ** 2 + f ** 4) - t)) ** 2)
+
+    def _rfun(self, p) -> np.ndarray:
+        """Unnormalised R-function distance (Sukumar & Srivastava, CMAME 389, 2022, eqs. 11-13)."""
+        _, _, phi_i = self._edge_functions(p)
         with np.errstate(divide="ignore"):
             inv = np.where(phi_i > 0, 1.0 / np.where(phi_i > 0, phi_i, 1.0), np.inf)
         s = inv.sum(axis=1)   # R-equivalence with m = 1: phi = 1 / sum(1 / phi_i)
@@ -740,25 +747,19 @@ class Polygon(Domain):
         out = np.empty(len(p))
         A, B = self.edges
         d = B - A
-        L = np.linalg.norm(d, axis=1)
-        L2 = L * L
-        xc = 0.5 * (A + B)
         E = len(A)
         ends = self._edge_taylor(g)                                         # (E, 2, 3)
         normal = self._vertex_normal_derivatives(ends)                      # (E, 2)
         chunk = max(1, 200_000 // E)
         for c in range(0, len(p), chunk):
             q = p[c:c + chunk]
-            s = ((q[:, None, :] - A[None]) * d[None]).sum(-1) / L2[None]      # (m, E)
+            s, f, phi_i = self._edge_functions(q)                           # (m, E) each
             sc = np.clip(s, 0.0, 1.0)
             G = np.asarray(g((A[None] + sc[..., None] * d[None]).reshape(-1, 2)), float).reshape(len(q), E)
             for end, side in ((0, s < 0.0), (1, s > 1.0)):
                 ds = np.where(side, s - end, 0.0)
                 G += ds * ends[None, :, end, 1] + 0.5 * ds * ds * ends[None, :, end, 2]
-            f = _cross(d[None], q[:, None, :] - A[None]) / L[None]
             G += (normal[None, :, 0] * (1.0 - s) + normal[None, :, 1] * s) * f
-            t = ((0.5 * L[None]) ** 2 - ((q[:, None, :] - xc[None]) ** 2).sum(-1)) / L[None]
-            phi_i = np.sqrt(f ** 2 + (0.5 * (np.sqrt(t ** 2 + f ** 4) - t)) ** 2)
             pmin = phi_i.min(axis=1, keepdims=True)
             with np.errstate(divide="ignore", invalid="ignore"):
                 w = np.where(pmin > 0, (pmin / phi_i) ** 2, (phi_i == 0).astype(float))

@@ -185,9 +185,7 @@ class PINNEigen(Solver):
         step = 0
 
         def fields(net):
-            """u = phi N and grad u at the training points."""
-            u, g, _ = net.derivatives(X, order=1)
-            return PHI * u, GPHI * u[:, None] + PHI[:, None] * g
+            return _hard_fields(net, X, PHI, GPHI)
 
         with ctx.phase("train"):
             if p.strategy == "subspace":
@@ -342,6 +340,12 @@ class PINNEigen(Solver):
         return step + done, reason
 
 
+def _hard_fields(net, X, PHI, GPHI):
+    """u = phi N and grad u = N grad phi + phi grad N at the points X (torch tensors)."""
+    u, g, _ = net.derivatives(X, order=1)
+    return PHI * u, GPHI * u[:, None] + PHI[:, None] * g
+
+
 def _penalised_objective(net, fields, W, found, weight):
     """Sequential strategy: Rayleigh quotient of one mode plus orthogonality penalties."""
     import torch
@@ -417,14 +421,11 @@ def _rayleigh_ritz(nets, domain, level: int):
     pts, w = pts[inside], w[inside]
     phi, gphi = _phi_gradient(domain, pts)
     X = torch.as_tensor(pts, dtype=torch.float64)
-    V, G = [], []
-    for net in nets64:
-        u, g, _ = net.derivatives(X, order=1)
-        u, g = u.detach().numpy(), g.detach().numpy()
-        V.append(phi * u)
-        G.append(gphi * u[:, None] + phi[:, None] * g)
-    V = np.column_stack(V)
-    G = np.stack(G, axis=1)                                   # (m, k, 2)
+    PHI, GPHI = torch.as_tensor(phi), torch.as_tensor(gphi)
+    with torch.no_grad():
+        V, G = zip(*(_hard_fields(net, X, PHI, GPHI) for net in nets64))
+    V = torch.stack(V, 1).numpy()                             # (m, k)
+    G = torch.stack(G, 1).numpy()                             # (m, k, 2)
     A = np.einsum("m,mid,mjd->ij", w, G, G)
     B = np.einsum("m,mi,mj->ij", w, V, V)
     lam, C = scipy.linalg.eigh(A, B)
