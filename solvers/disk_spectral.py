@@ -1,4 +1,8 @@
-"""Spectral collocation on the disk: Chebyshev in radius x Fourier in angle, mode by mode."""
+"""Spectral collocation on the disk: Chebyshev in radius x Fourier in angle, mode by mode.
+
+Eigenproblems (`disk_eigen`) solve one radial eigenproblem per Fourier wavenumber and keep the
+eigenvalues that pass the drift test of `solvers.eigen`.
+"""
 from __future__ import annotations
 
 import dataclasses
@@ -7,9 +11,10 @@ import numpy as np
 
 from bench.config import ConfigError, positive
 from solvers.base import Solution, Solver, Tags
+from solvers.eigen import DRIFT_TOL, drift_accept, eigen_solution
 from solvers.spectral import barycentric_matrix, cheb
 
-__all__ = ["DiskChebyshev"]
+__all__ = ["DiskChebyshev", "disk_eigen"]
 
 
 @dataclasses.dataclass
@@ -42,7 +47,7 @@ class DiskChebyshev(Solver):
 
     name = "disk_cheb"
     family = "spectral"
-    preload_modules = ("scipy.linalg", "solvers.eigen")
+    preload_modules = ("scipy.linalg",)
     description = "Chebyshev (radius) x Fourier (angle) collocation on a disk, mode by mode"
     reference = "Trefethen, Spectral Methods in MATLAB, SIAM 2000, ch. 11; Fornberg 1996"
     Params = DiskChebParams
@@ -59,9 +64,7 @@ class DiskChebyshev(Solver):
     def _solve(self, problem, budget, ctx):
         d = problem.domain
         n, m = self.params.n, self.params.m
-        if problem.kind == "eigen":  # radial eigenproblems per wavenumber (solvers/eigen.py)
-            from solvers.eigen import disk_eigen
-
+        if problem.kind == "eigen":  # radial eigenproblems per wavenumber
             with ctx.phase("solve"):
                 return disk_eigen((d.cx, d.cy), d.radius, 2 * n + 1, problem.n_eigs,
                                   {"h": float(d.radius / n)}, max_wavenumber=m // 2)
@@ -130,3 +133,99 @@ class _DiskInterpolant:
             Uk = B @ self.V.T                                   # (q, K)
             out[s:s + 20_000] = np.real((Uk * self.w[None, :]) * np.exp(1j * th[:, None] * k[None, :])).sum(1)
         return out
+
+
+# -- eigenproblems ---------------------------------------------------------------------------------
+def _disk_radial(N: int, m: int):
+    """Eigenpairs of the radial operator for Fourier wavenumber m on the unit disk.
+
+    Chebyshev points r_j = cos(j pi / N) on [-1, 1] with N odd; only r > 0 are unknowns, the
+    values at r < 0 follow from u(-r, t) = u(r, t + pi), i.e. a factor (-1)^m (Trefethen 2000,
+    program 28). Returns ascending eigenvalues of -(d_rr + d_r / r - m^2 / r^2) and the
+    eigenvectors at r_1 .. r_{(N-1)/2}.
+    """
+    D, r = cheb(N)
+    N2 = (N - 1) // 2
+    DD = D @ D
+    D1, D2 = DD[1:N2 + 1, 1:N2 + 1], DD[1:N2 + 1, N - 1:N2:-1]
+    E1, E2 = D[1:N2 + 1, 1:N2 + 1], D[1:N2 + 1, N - 1:N2:-1]
+    R = np.diag(1.0 / r[1:N2 + 1])
+    s = (-1.0) ** m
+    L = D1 + R @ E1 + s * (D2 + R @ E2) - m * m * R @ R
+    mu, V = np.linalg.eig(-L)
+    bad = (np.abs(mu.imag) > 1e-8 * np.abs(mu)) | (mu.real <= 0)
+    mu = np.where(bad, np.inf, mu.real)
+    order = np.argsort(mu)
+    return mu[order], V[:, order].real, r
+
+
+def disk_eigen(center, radius: float, n: int, k: int, info: dict, max_wavenumber: int | None = None) -> Solution:
+    """Eigenpairs of the disk by the Chebyshev-Fourier spectral method with the drift filter.
+
+    `n` is the Chebyshev degree on [-1, 1] (made odd). Wavenumbers m = 0, 1, ... are added until
+    m^2 exceeds the k-th accepted eigenvalue (the radial eigenvalues for wavenumber m exceed
+    m^2, because j_{m,1} > m), or up to `max_wavenumber` (the angular resolution of the caller;
+    eigenvalues above the lowest one of wavenumber max_wavenumber + 1 are then not trusted).
+    Each m >= 1 contributes the cos and the sin mode (multiplicity 2). Chebyshev in r on
+    [-1, 1] with the parity trick and Fourier modes in t follow Trefethen (Spectral Methods in
+    MATLAB, SIAM 2000, ch. 11, program 28); each wavenumber gives a small dense radial problem.
+    """
+    N = n if n % 2 == 1 else n + 1
+    Nf = N + 2 * max(1, N // 4)                       # odd too, about 1.5 times the degree
+    cands = []   # (lambda on the unit disk, m, trig, radial vector on the fine grid)
+    cut = np.inf
+    m = 0
+    r = None
+    while True:
+        mu_c, _, _ = _disk_radial(N, m)
+        mu, V, r = _disk_radial(Nf, m)
+        acc = drift_accept(mu_c, mu, DRIFT_TOL)
+        if acc < len(mu) and np.isfinite(mu[acc]):
+            cut = min(cut, mu[acc])
+        for j in range(acc):
+            for trig in ((0,) if m == 0 else (0, 1)):
+                cands.append((mu[j], m, trig, V[:, j]))
+        vals = sorted(c[0] for c in cands if c[0] < cut)
+        if (len(vals) >= k and m * m > vals[k - 1]) or m * m > cut or m > 4 * Nf:
+            break
+        if max_wavenumber is not None and m >= max_wavenumber:
+            # wavenumbers above the caller's angular resolution are not represented: trust only
+            # eigenvalues below the lowest one of wavenumber m + 1 (they grow with m)
+            cut = min(cut, float(_disk_radial(Nf, m + 1)[0][0]))
+            break
+        m += 1
+    cands = sorted((c for c in cands if c[0] < cut), key=lambda c: (c[0], c[1], c[2]))[:k]
+    if len(cands) < k:
+        raise RuntimeError(f"disk spectral degree n={n} resolves only {len(cands)} of the k={k} "
+                           f"wanted eigenvalues (drift tolerance {DRIFT_TOL:g}); raise `solver.n`")
+    N2 = (Nf - 1) // 2
+    cx, cy = float(center[0]), float(center[1])
+    lam = np.array([c[0] for c in cands]) / radius ** 2
+    radial = []
+    for mu_j, mm, trig, v in cands:
+        full = np.zeros(Nf + 1)            # values at all Chebyshev points r_0 = 1 .. r_N = -1
+        full[1:N2 + 1] = v
+        full[Nf - 1:N2:-1] = (-1.0) ** mm * v
+        radial.append(full)
+    radial = np.array(radial).T            # (Nf + 1, k)
+    ms = np.array([c[1] for c in cands])
+    trigs = np.array([c[2] for c in cands])
+    # L2 normalisation over the unit disk: int_0^1 v(r)^2 r dr times 2 pi (m = 0) or pi (m >= 1)
+    rr = np.linspace(0.0, 1.0, 2001)
+    vr = barycentric_matrix(r, rr) @ radial
+    norm2 = np.trapezoid(vr * vr * rr[:, None], rr, axis=0) * np.where(ms == 0, 2 * np.pi, np.pi)
+    radial = radial / np.sqrt(norm2) / radius
+    peak = np.argmax(np.abs(vr), axis=0)
+    radial *= np.sign(vr[peak, np.arange(len(ms))])
+
+    def modes(points):
+        p = np.asarray(points, dtype=float)
+        dx, dy = (p[:, 0] - cx) / radius, (p[:, 1] - cy) / radius
+        rho = np.minimum(np.hypot(dx, dy), 1.0)
+        th = np.arctan2(dy, dx)
+        vals = barycentric_matrix(r, rho) @ radial
+        ang = np.where(trigs[None, :] == 0, np.cos(ms[None, :] * th[:, None]), np.sin(ms[None, :] * th[:, None]))
+        return vals * ang
+
+    return eigen_solution(lam, modes, {**info, "dofs": int(N2 * (2 * int(ms.max()) + 1)), "n_used": Nf,
+                                       "drift_tol": DRIFT_TOL, "max_wavenumber": int(ms.max())})

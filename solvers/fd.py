@@ -1,16 +1,22 @@
-"""Finite differences on tensor grids: the 5-point scheme and the compact 9-point scheme."""
+"""Finite differences on tensor grids: the 5-point scheme and the compact 9-point scheme.
+
+Eigenproblems on rectangles (`grid_eigen`) use the same matrices, by the shared shift-invert
+Lanczos of `solvers.eigen`; fd5 on other domains goes to `solvers.masked`.
+"""
 from __future__ import annotations
 
 import dataclasses
 
 import numpy as np
+import scipy.sparse as sps
 
 from bench.config import ConfigError, one_of, positive
 from solvers.base import Solution, Solver, Tags
-from solvers.grid import LocalLagrange, TensorGrid, discrete_rhs, interior_matrix
+from solvers.eigen import eigen_solution, eigsh_lowest, field_modes
+from solvers.grid import LocalLagrange, TensorGrid, discrete_rhs, interior_matrix, second_difference
 from solvers.linalg import LINEAR_SOLVERS, solve_spd
 
-__all__ = ["FD5", "FD9", "MAX_GRID_N"]
+__all__ = ["FD5", "FD9", "MAX_GRID_N", "grid_eigen"]
 
 # A grid finer than this needs > ~0.5 TB for a sparse factorisation; refused up front.
 MAX_GRID_N = 1 << 15
@@ -34,8 +40,9 @@ class FDParams:
 
 class _SparseFD(Solver):
     family = "fd"
-    # AMG (linalg, masked), eigensolvers (eigen), Shortley-Weller grids and their interpolant
-    preload_modules = ("pyamg", "scipy.linalg", "scipy.spatial", "solvers.eigen", "solvers.masked")
+    # AMG (linalg, masked), dense tiny eigenproblems (scipy.linalg in solvers.eigen), Shortley-Weller
+    # grids and their interpolant (masked, scipy.spatial)
+    preload_modules = ("pyamg", "scipy.linalg", "scipy.spatial", "solvers.masked")
     compact = False
     Params = FDParams
     tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=frozenset({"rectangle"}))
@@ -56,9 +63,7 @@ class _SparseFD(Solver):
         return N * per / 2 ** 20
 
     def _solve(self, problem, budget, ctx):
-        if problem.kind == "eigen":  # shift-invert Lanczos on the same matrix (solvers/eigen.py)
-            from solvers.eigen import grid_eigen
-
+        if problem.kind == "eigen":  # shift-invert Lanczos on the same matrix
             with ctx.phase("solve"):
                 return grid_eigen(TensorGrid(problem.domain, self.params.n), self.compact,
                                   problem.n_eigs, {"h": max(problem.domain.lengths) / self.params.n})
@@ -80,6 +85,35 @@ def grid_solution(grid: TensorGrid, U: np.ndarray, degree: int, info: dict) -> S
                     values=U[1:-1, 1:-1].ravel(), info=info)
 
 
+def grid_eigen(grid, compact: bool, k: int, info: dict) -> Solution:
+    """5-point (order 2) or compact 9-point (order 4) eigenvalues on a rectangle's tensor grid.
+
+    The compact scheme applies the Mehrstellen correction to both sides:
+    -(Dxx + Dyy + (hx^2 + hy^2)/12 Dxx Dyy) u = lambda (I + (hx^2 Dxx + hy^2 Dyy)/12) u, the
+    eigenvalue form of the corrected right-hand side (Collatz 1960; LeVeque 2007, sec. 3.5), which
+    is fourth order for the eigenvalues of smooth eigenfunctions.
+    """
+    A = interior_matrix(grid, compact)
+    B = None
+    if compact:
+        m = grid.n - 1
+        I = sps.identity(m, format="csr")
+        B = (sps.identity(m * m, format="csr") + (grid.hx ** 2 * sps.kron(second_difference(m, grid.hx), I)
+                                                   + grid.hy ** 2 * sps.kron(I, second_difference(m, grid.hy))) / 12.0)
+        B = B.tocsr()
+    lam, V = eigsh_lowest(A, k, B)
+    m = grid.n - 1
+    h2 = grid.hx * grid.hy
+    V = V / np.sqrt(h2 * np.sum(V * V, axis=0))      # discrete L2 normalisation
+    fields = []
+    for j in range(V.shape[1]):
+        U = np.zeros((grid.n + 1, grid.n + 1))
+        U[1:-1, 1:-1] = V[:, j].reshape(m, m)
+        fields.append(LocalLagrange(grid.x, grid.y, U, 3 if compact else 1))
+    return eigen_solution(lam, field_modes(fields), {**info, "dofs": int(m * m)}, nodes=grid.interior_points,
+                          first_values=V[:, 0])
+
+
 class FD5(_SparseFD):
     """Standard 5-point finite differences, sparse direct or AMG-preconditioned CG.
 
@@ -96,7 +130,7 @@ class FD5(_SparseFD):
 
     def _solve(self, problem, budget, ctx):
         if problem.domain.kind != "rectangle" and problem.kind == "eigen":
-            from solvers.eigen import masked_eigen  # the same masked operator, eigenpairs
+            from solvers.masked import masked_eigen  # the same masked operator, eigenpairs
 
             with ctx.phase("solve"):
                 return masked_eigen(problem, self.params.n, problem.n_eigs, {})

@@ -6,6 +6,8 @@ successive levels are nested. Disks start from scikit-fem's four-triangle disk a
 boundary nodes onto the circle after each refinement; annuli use a polar mesh with nodes on both
 circles. For P2 on curved boundaries the mesh is quadratic (isoparametric): edge midpoints on
 the boundary lie on the circle, so the geometry error O(h^3) does not spoil the order.
+Eigenproblems (`fem_eigen`, also the computed references of `bench.eigen_problems`) assemble
+stiffness and mass on the same meshes and use the shared shift-invert Lanczos of `solvers.eigen`.
 """
 from __future__ import annotations
 
@@ -17,9 +19,10 @@ import numpy as np
 
 from bench.config import ConfigError, one_of, positive
 from solvers.base import Solution, Solver, Tags
+from solvers.eigen import eigen_solution, eigsh_lowest, field_modes
 from solvers.linalg import LINEAR_SOLVERS, solve_spd
 
-__all__ = ["FEMP1", "FEMP2", "build_mesh", "FEMFunction", "MAX_LEVEL"]
+__all__ = ["FEMP1", "FEMP2", "build_mesh", "FEMFunction", "fem_eigen", "fem_eigen_solution", "MAX_LEVEL"]
 
 # scikit-fem logs every assembly at INFO level; the harness's stdout logging would print them all
 logging.getLogger("skfem").setLevel(logging.WARNING)
@@ -266,6 +269,50 @@ class FEMFunction:
         return out
 
 
+# -- eigenproblems -------------------------------------------------------------------------------
+
+def fem_eigen(mesh, order: int, k: int):
+    """Conforming Lagrange P1/P2 eigenpairs: K x = lambda M x on the interior dofs of `mesh`.
+
+    By the min-max principle the conforming Galerkin eigenvalues bound the exact ones from above
+    and converge at order 2p for smooth eigenfunctions (Strang & Fix, An Analysis of the Finite
+    Element Method, 1973, ch. 6). On a quadratic (isoparametric) mesh the basis follows the
+    curved geometry. Returns (eigenvalues, basis, full coefficient vectors (ndofs, k)).
+    """
+    from skfem import Basis, BilinearForm, ElementTriP1, ElementTriP2, asm
+    from skfem.helpers import dot, grad
+
+    @BilinearForm
+    def stiffness(u, v, w):
+        return dot(grad(u), grad(v))
+
+    @BilinearForm
+    def mass(u, v, w):
+        return u * v
+
+    elem = {1: ElementTriP1, 2: ElementTriP2}[order]()
+    basis = Basis(mesh, elem, intorder=2 * order + 1)
+    K = asm(stiffness, basis)
+    M = asm(mass, basis)
+    D = basis.get_dofs(facets=boundary_facets(mesh)).flatten()
+    free = np.setdiff1d(np.arange(basis.N), D)
+    # COLAMD, not the minimum-degree ordering of the grid solvers: on the P2 L-shape matrix with
+    # 32k unknowns SuperLU took 15 s with MMD_AT_PLUS_A and 1.1 s with COLAMD (measured here)
+    lam, Vi = eigsh_lowest(K[free][:, free].tocsr(), k, M[free][:, free].tocsr(), permc_spec="COLAMD")
+    V = np.zeros((basis.N, len(lam)))
+    V[free] = Vi
+    return lam, basis, V
+
+
+def fem_eigen_solution(mesh, order: int, k: int, info: dict) -> Solution:
+    """Solution object of `fem_eigen`: modes evaluated through the elements' own interpolant."""
+    lam, basis, V = fem_eigen(mesh, order, k)
+    fields = [FEMFunction(basis, V[:, j]) for j in range(V.shape[1])]
+    dofs = int(basis.N - len(basis.get_dofs(facets=boundary_facets(mesh)).flatten()))
+    return eigen_solution(lam, field_modes(fields), {**info, "dofs": dofs}, nodes=basis.doflocs.T.copy(),
+                          first_values=V[:, 0])
+
+
 # -- the solvers ----------------------------------------------------------------------------------
 
 class _FEM(Solver):
@@ -274,8 +321,8 @@ class _FEM(Solver):
     Params = FEMParams
     tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=FEM_DOMAINS)
 
-    # skfem and pyamg cost about 0.5 s to import; eigenproblems use solvers.eigen and scipy.linalg
-    preload_modules = ("pyamg", "skfem", "skfem.helpers", "scipy.linalg", "solvers.eigen")
+    # skfem and pyamg cost about 0.5 s to import; tiny eigenproblems use scipy.linalg (solvers.eigen)
+    preload_modules = ("pyamg", "skfem", "skfem.helpers", "scipy.linalg")
 
     def effective_level(self, domain) -> int:
         """`level`, or the smallest level whose largest edge is at most `h`."""
@@ -302,9 +349,7 @@ class _FEM(Solver):
 
         domain = problem.domain
         level = self.effective_level(domain)
-        if problem.kind == "eigen":  # K x = lambda M x by shift-invert Lanczos (solvers/eigen.py)
-            from solvers.eigen import fem_eigen_solution
-
+        if problem.kind == "eigen":  # K x = lambda M x by shift-invert Lanczos
             with ctx.phase("setup"):
                 mesh = build_mesh(domain, level, quadratic=self.degree == 2)
             with ctx.phase("solve"):

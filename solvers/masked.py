@@ -12,6 +12,7 @@ axis-parallel edges no arm is shortened and the scheme is the plain 5-point sten
 
 The matrix is not symmetric next to curved or off-grid boundaries, so ``amg`` uses
 smoothed-aggregation AMG of the symmetric part as a preconditioner of GMRES instead of CG.
+Eigenproblems (`masked_eigen`) use the same matrix with zero boundary values.
 """
 from __future__ import annotations
 
@@ -20,8 +21,9 @@ import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 
 from solvers.base import Solution
+from solvers.eigen import eigen_solution, eigsh_lowest, field_modes, shift_invert, sign_fix
 
-__all__ = ["masked_fd5", "MaskedGrid", "MaskedInterpolant", "solve_general"]
+__all__ = ["masked_fd5", "masked_eigen", "MaskedGrid", "MaskedInterpolant", "solve_general"]
 
 BISECTION_STEPS = 55        # 2^-55 h: crossings lie on the boundary to rounding error
 _DIRS = ((1, 0), (-1, 0), (0, 1), (0, -1))
@@ -95,58 +97,102 @@ def solve_general(A, b, method: str, tol: float, maxiter: int = 500):
                "relative_residual": rel}
 
 
+def _shortley_weller(grid: MaskedGrid):
+    """The Shortley-Weller 5-point matrix on the unknowns of `grid`, with zero boundary values.
+
+    Returns (A, P, arm, weights): the (N, N) CSR matrix, the unknowns' points (N, 2), the arm
+    length per direction of `_DIRS` (h, or the distance to the boundary crossing where the arm is
+    cut) and, in assembly order, (direction, weight, known) of every arm: where `known` (the arm
+    ends at a boundary node or crossing, not at an unknown) the weight times the boundary value
+    there belongs on the right-hand side.
+    """
+    h = grid.h
+    I, J = np.nonzero(grid.inside)
+    row = grid.index[I, J]
+    N = len(row)
+    P = grid.points.reshape(grid.nx + 1, grid.ny + 1, 2)[I, J]
+    arm, col = {}, {}
+    for (di, dj) in _DIRS:
+        i2, j2 = I + di, J + dj
+        valid = (i2 >= 0) & (i2 <= grid.nx) & (j2 >= 0) & (j2 <= grid.ny)
+        i2c, j2c = np.clip(i2, 0, grid.nx), np.clip(j2, 0, grid.ny)
+        unknown = valid & grid.inside[i2c, j2c]
+        cut = ~(unknown | (valid & grid.onb[i2c, j2c]))
+        s = np.full(N, h)
+        if cut.any():
+            s[cut] = grid.crossing(P[cut], np.array([di, dj], dtype=float))
+        arm[(di, dj)] = s
+        col[(di, dj)] = np.where(unknown, grid.index[i2c, j2c], -1)
+    diag = np.zeros(N)
+    rows, cols, data, weights = [row], [row], [], []
+    for axis in (((1, 0), (-1, 0)), ((0, 1), (0, -1))):
+        hp, hm = arm[axis[0]], arm[axis[1]]
+        for d, hd, ho in ((axis[0], hp, hm), (axis[1], hm, hp)):
+            c = 2.0 / (hd * (hd + ho))     # Shortley-Weller weight of this arm
+            diag += c
+            unk = col[d] >= 0
+            rows.append(row[unk])
+            cols.append(col[d][unk])
+            data.append(-c[unk])
+            weights.append((d, c, ~unk))
+    A = sps.csr_matrix((np.concatenate([diag] + data), (np.concatenate(rows), np.concatenate(cols))),
+                       shape=(N, N))
+    return A, P, arm, weights
+
+
 def masked_fd5(problem, params, ctx) -> Solution:
     """Shortley-Weller 5-point solve of ``-Laplace(u) = f, u = g`` on ``problem.domain``."""
     with ctx.phase("setup"):
         grid = MaskedGrid(problem.domain, params.n)
         h = grid.h
-        I, J = np.nonzero(grid.inside)
-        row = grid.index[I, J]
-        N = len(row)
+        N = int(grid.inside.sum())
         if N == 0:
             raise ValueError(f"grid with n={params.n} has no node inside the domain; raise `solver.n`")
-        P = grid.points.reshape(grid.nx + 1, grid.ny + 1, 2)[I, J]
-        arm = {}
-        val = {}           # known value at the arm's end (NaN where the end is an unknown)
-        col = {}
-        for (di, dj) in _DIRS:
-            i2, j2 = I + di, J + dj
-            valid = (i2 >= 0) & (i2 <= grid.nx) & (j2 >= 0) & (j2 <= grid.ny)
-            i2c, j2c = np.clip(i2, 0, grid.nx), np.clip(j2, 0, grid.ny)
-            unknown = valid & grid.inside[i2c, j2c]
-            onb = valid & grid.onb[i2c, j2c]
-            cut = ~(unknown | onb)
-            s = np.full(N, h)
-            e = np.array([di, dj], dtype=float)
-            if cut.any():
-                s[cut] = grid.crossing(P[cut], e)
-            ends = P + s[:, None] * e
-            known = ~unknown
-            v = np.full(N, np.nan)
-            if known.any():
-                v[known] = problem.g(ends[known]) if problem.g is not None else 0.0
-            arm[(di, dj)], val[(di, dj)] = s, v
-            col[(di, dj)] = np.where(unknown, grid.index[i2c, j2c], -1)
+        A, P, arm, weights = _shortley_weller(grid)
         rhs = problem.f_or_zero(P).astype(float)
-        diag = np.zeros(N)
-        rows, cols, data = [row], [row], []
-        for axis in (((1, 0), (-1, 0)), ((0, 1), (0, -1))):
-            hp, hm = arm[axis[0]], arm[axis[1]]
-            for d, hd, ho in ((axis[0], hp, hm), (axis[1], hm, hp)):
-                c = 2.0 / (hd * (hd + ho))     # Shortley-Weller weight of this arm
-                diag += c
-                unk = col[d] >= 0
-                rows.append(row[unk])
-                cols.append(col[d][unk])
-                data.append(-c[unk])
-                rhs[~unk] += c[~unk] * val[d][~unk]
-        A = sps.csr_matrix((np.concatenate([diag] + data), (np.concatenate(rows), np.concatenate(cols))),
-                           shape=(N, N))
+        for d, c, known in weights:
+            if known.any():
+                ends = P[known] + arm[d][known, None] * np.array(d, dtype=float)
+                g = problem.g(ends) if problem.g is not None else 0.0
+                rhs[known] += c[known] * g
     with ctx.phase("solve"):
         u, info = solve_general(A, rhs, params.linear_solver, params.tol)
     interp = MaskedInterpolant(grid, u, problem)
     return Solution(evaluate=interp, nodes=P, values=u,
                     info={**info, "dofs": int(N), "h": float(h), "scheme": "shortley-weller"})
+
+
+def masked_eigen(problem, n: int, k: int, info: dict) -> Solution:
+    """Shortley-Weller 5-point eigenpairs on a masked grid over a non-rectangular domain.
+
+    The operator is the one `masked_fd5` uses for Poisson problems (arms shortened to the
+    boundary crossing; Shortley & Weller, J. Appl. Phys. 9, 1938) with zero boundary values. It is
+    symmetric when no arm is cut (polygons with grid-aligned edges, such as the L-shape at even n)
+    and then solved by the symmetric Lanczos path; otherwise ARPACK's non-symmetric Arnoldi in
+    shift-invert mode (Lehoucq, Sorensen & Yang 1998) gives the eigenvalues nearest 0, whose
+    imaginary parts are rounding (the scheme is similar to a symmetric one only approximately).
+    """
+    grid = MaskedGrid(problem.domain, n)
+    h = grid.h
+    N = int(grid.inside.sum())
+    if N <= k + 1:
+        raise ValueError(f"grid with n={n} has only {N} nodes inside the domain; raise `solver.n`")
+    A, P, _, _ = _shortley_weller(grid)
+    asym = abs(A - A.T).max()
+    if asym <= 1e-12 * abs(A).max():
+        lam, V = eigsh_lowest(A, k)
+        method = "symmetric Lanczos"
+    else:
+        OPinv, v0 = shift_invert(A)
+        lam, V = spla.eigs(A, k=k, sigma=0.0, which="LM", OPinv=OPinv, v0=v0)
+        order = np.argsort(lam.real)
+        lam, V = lam.real[order], sign_fix(V.real[:, order])
+        method = "shift-invert Arnoldi (non-symmetric Shortley-Weller matrix)"
+    V = V / np.sqrt(h * h * np.sum(V * V, axis=0))
+    fields = [MaskedInterpolant(grid, V[:, j], problem) for j in range(V.shape[1])]
+    return eigen_solution(lam, field_modes(fields), {**info, "dofs": int(N), "h": float(h),
+                                                     "scheme": "shortley-weller", "eigen_method": method},
+                          nodes=P, first_values=V[:, 0])
 
 
 class MaskedInterpolant:
