@@ -117,11 +117,10 @@ def group_key(entry: dict) -> str:
 
 def key_of_prepared(prep) -> str:
     """The key of a prepared case (bench.run.prepare), whether or not it has a record yet."""
-    from bench.run import problem_id
+    from bench.run import problem_key
 
-    label = prep.case.problem_label or prep.problem.name
     res = prep.solver.resolution()
-    return case_key(problem_id(label, prep.problem.params), prep.solver.name,
+    return case_key(problem_key(prep), prep.solver.name,
                     ",".join(f"{k}={v}" for k, v in res.items()),
                     solver_options(prep.solver.name, prep.case.solver, res), prep.case.seed)
 

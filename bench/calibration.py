@@ -7,7 +7,9 @@ faster or slower (or busier) machine changes both by about the same factor and t
 put; `lapbench check` compares these ratios, never raw seconds. Timing once per process was
 tried first: under a load that changed during a sweep, normalised times of a rerun drifted by
 factors of 2 to 4, because the one calibration no longer described the machine the later cases
-ran on.
+ran on. A calibration younger than `MAX_AGE` seconds is reused (its age is recorded): a sweep of
+millisecond cases would otherwise spend most of its time calibrating (0.1-0.25 s a case), and
+seconds apart the machine has not changed its speed.
 
 The kernel mixes the three kinds of work the solvers do: dense BLAS (a matrix product, like
 Chebyshev collocation and network layers), a real 2-D FFT (the sine-transform solvers) and a
@@ -24,7 +26,9 @@ __all__ = ["KERNEL", "calibration_seconds", "measure"]
 KERNEL = "mm384+rfft2-1024+splu2d-96/median3/v2"
 REPEATS = 3          # the median of three: one interruption by another process does not count
 
-_CACHE: dict = {"inputs": None, "warm": False}
+MAX_AGE = 5.0        # seconds a calibration stays valid for the next cases
+
+_CACHE: dict = {"inputs": None, "warm": False, "last": None}
 
 
 def _inputs():
@@ -78,6 +82,13 @@ def measure(repeats: int = REPEATS) -> float:
         return statistics.median(_once(inputs) for _ in range(repeats))
 
 
-def calibration_seconds() -> float:
-    """The kernel's time now, in this process (the harness calls it right before each case)."""
-    return measure()
+def calibration_seconds(max_age: float = MAX_AGE) -> tuple[float, float]:
+    """(the kernel's time, its age in seconds): measured now in this process, or the last
+    measurement when it is younger than `max_age` (the harness calls it right before each case)."""
+    now = time.monotonic()
+    last = _CACHE["last"]
+    if last is not None and now - last[1] < max_age:
+        return last[0], now - last[1]
+    value = measure()
+    _CACHE["last"] = (value, time.monotonic())
+    return value, 0.0

@@ -38,7 +38,7 @@ from bench.baseline import group_key, key_of_prepared, read_baseline, summarise,
 from bench.config import ConfigError, one_of
 
 __all__ = ["CheckConfig", "Finding", "CheckResult", "compare", "format_table", "to_markdown",
-           "to_junit", "cmd_check", "cmd_baseline", "EXIT_CLEAN", "EXIT_REGRESSION"]
+           "to_junit", "plan_check", "run_check", "run_baseline", "EXIT_CLEAN", "EXIT_REGRESSION"]
 
 EXIT_CLEAN = 0
 EXIT_REGRESSION = 1
@@ -453,27 +453,31 @@ Other options: conf/check/default.yaml.
 """
 
 
-def _plan(argv: list[str]):
-    """Parse arguments, compose the suite's cases and locate their records; no case runs here.
+@dataclasses.dataclass
+class CheckPlan:
+    """A parsed `check`/`baseline` request: the suite's cases and where their records are."""
 
-    Returns (args, suite name, CheckConfig, results_dir, [(case, record path)]).
-    """
-    from hydra import initialize_config_dir
-    from hydra.core.global_hydra import GlobalHydra
+    args: object
+    name: str
+    ccfg: CheckConfig
+    results_dir: str
+    planned: list          # [(case, record path)]
+
+
+def plan_check(argv: list[str]) -> CheckPlan:
+    """Parse arguments, compose the suite's cases and locate their records; no case runs here."""
     from omegaconf import OmegaConf
 
-    from bench import cli
+    from bench.compose import Args, Session, case_from_cfg, strip_overrides
     from bench.config import build_params
     from bench.suites import expand_suite
 
-    args = cli.Args(argv)
+    args = Args(argv)
     if args.multirun:
         raise ConfigError("`--multirun` does not apply here; the suite names the cases (suite=<name>)")
-    cli._CONFIG_NAME[0] = args.config_name
-    GlobalHydra.instance().clear()
-    with initialize_config_dir(config_dir=str(cli.conf_dir()), version_base="1.3"):
+    with Session(args) as session:
         base = args.searchpath_overrides() + args.overrides
-        cfg = cli.compose_case(base)
+        cfg = session.compose(base)
         if "check" not in cfg:
             raise ConfigError("`check` options are missing from the config; add `- check: default` to its defaults")
         ccfg = build_params(CheckConfig, OmegaConf.to_container(cfg.check, resolve=True), prefix="check")
@@ -481,19 +485,19 @@ def _plan(argv: list[str]):
         name = suite.get("name")
         if not name:
             raise ConfigError("`suite` is required: lapbench check suite=<name>; suites: "
-                              + ", ".join(o for o in cli._group_options("suite") if o != "none"))
+                              + ", ".join(o for o in session.group_options("suite") if o != "none"))
         cases = expand_suite(suite)
         if not cases:
             raise ConfigError(f"`suite` {name!r} has no cases")
-        rest = cli._strip(base, ("suite", "case_index"))
+        rest = strip_overrides(base, ("suite", "case_index"))
         planned = []
         results_dir = OmegaConf.select(cfg, "results_dir") or "results"
         for ov in cases:
-            case, opts = cli.case_from_cfg(cli.compose_case(ov + rest))
+            case, opts = case_from_cfg(session.compose(ov + rest))
             case.suite = name
             results_dir = opts.results_dir
             planned.append((case, _locate(case, results_dir)))
-    return args, name, ccfg, results_dir, planned
+    return CheckPlan(args, name, ccfg, results_dir, planned)
 
 
 def _locate(case, results_dir) -> Path:
@@ -505,22 +509,6 @@ def _locate(case, results_dir) -> Path:
     solver = make_solver(case.solver)
     label = case.problem_label or case.problem.get("name")
     return record_path(results_dir, label, solver.name, config_hash(case.identity()))
-
-
-def _maybe_run(args, ccfg: CheckConfig, name: str) -> None:
-    """check.run=true: run the suite (skipping cases whose record exists) before reading records."""
-    if not ccfg.run:
-        return
-    from hydra.core.global_hydra import GlobalHydra
-
-    from bench import cli
-
-    GlobalHydra.instance().clear()
-    argv = args.hydra_argv() + args.overrides
-    code = cli.cmd_run(argv)
-    GlobalHydra.instance().clear()
-    if code != 0:
-        cli.fail(f"the run of suite {name!r} failed (exit code {code}); no comparison made")
 
 
 def _collect(planned):
@@ -556,18 +544,12 @@ def _command_line(cmd: str, args) -> str:
     return " ".join(["lapbench", cmd] + kept)
 
 
-def cmd_check(argv: list[str]) -> int:
+def run_check(plan: CheckPlan) -> int:
     """`lapbench check`: compare a suite's records with its baseline; exit 0, 1 or 2."""
-    from bench import cli
-
-    if any(a in ("-h", "--help") for a in argv):
-        print(CHECK_USAGE)
-        return 0
-    args, name, ccfg, results_dir, planned = _plan(argv)
+    name, ccfg, results_dir = plan.name, plan.ccfg, plan.results_dir
     base_path = ccfg.baseline_path(name)
     base_doc = read_baseline(base_path, suite=name)
-    _maybe_run(args, ccfg, name)
-    records, missing = _collect(planned)
+    records, missing = _collect(plan.planned)
     cur_doc = summarise(records, name)
     result = compare(base_doc, cur_doc, ccfg, {_key(c, results_dir) for c in missing})
     out_dir = Path(ccfg.out_dir) if ccfg.out_dir else Path(results_dir) / "check" / name
@@ -576,29 +558,24 @@ def cmd_check(argv: list[str]) -> int:
         (out_dir / "summary.md").write_text(to_markdown(result))
         (out_dir / "junit.xml").write_text(to_junit(result))
     except OSError as exc:
-        cli.fail(f"`check.out_dir` {str(out_dir)!r} cannot be written: {exc}")
+        raise ConfigError(f"`check.out_dir` {str(out_dir)!r} cannot be written: {exc}") from None
     sys.stdout.write(format_table(result, show_all=ccfg.show == "all"))
     print(f"lapbench: compared {len(records)} records of suite {name!r} with {base_path}; "
           f"summary in {out_dir}/summary.md and {out_dir}/junit.xml", file=sys.stderr)
     return result.exit_code
 
 
-def cmd_baseline(argv: list[str]) -> int:
+def run_baseline(plan: CheckPlan) -> int:
     """`lapbench baseline`: write results/baseline/<suite>.json from the suite's records."""
-    from bench import cli
-
-    if any(a in ("-h", "--help") for a in argv):
-        print(CHECK_USAGE)
-        return 0
-    args, name, ccfg, results_dir, planned = _plan(argv)
-    _maybe_run(args, ccfg, name)
-    records, missing = _collect(planned)
+    name, results_dir = plan.name, plan.results_dir
+    records, missing = _collect(plan.planned)
     if missing:
-        cli.fail(f"`suite` {name!r}: {len(missing)} of {len(planned)} cases have no record under "
-                 f"{results_dir}/runs (e.g. {_key(missing[0], results_dir)!r}); run `lapbench run suite={name} "
-                 f"results_dir={results_dir}` first, or add check.run=true")
-    doc = summarise(records, name, command=_command_line("baseline", args))
-    path = write_baseline(ccfg.baseline_path(name), doc)
+        raise ConfigError(
+            f"`suite` {name!r}: {len(missing)} of {len(plan.planned)} cases have no record under "
+            f"{results_dir}/runs (e.g. {_key(missing[0], results_dir)!r}); run `lapbench run suite={name} "
+            f"results_dir={results_dir}` first, or add check.run=true")
+    doc = summarise(records, name, command=_command_line("baseline", plan.args))
+    path = write_baseline(plan.ccfg.baseline_path(name), doc)
     statuses: dict[str, int] = {}
     for e in doc["cases"].values():
         statuses[e["status"]] = statuses.get(e["status"], 0) + 1

@@ -1,28 +1,31 @@
-"""The `lapbench` command: run, list, report (and the stages that plug in later).
+"""The `lapbench` command line: the top floor; nothing imports it.
 
 Bad input never reaches a half-written state: every case of a run or sweep is composed and
-validated before the first one starts; errors print one line and exit with code 2.
+validated (bench.compose) before the first one starts; errors print one line and exit with
+code 2. A sequential run or suite is run by bench.sweep from this process; parallel and
+cluster launchers get one Hydra job per case (`job`).
 """
 from __future__ import annotations
 
-import os
 import sys
 from pathlib import Path
 
-from bench.config import ConfigError, build_params, positive
+from bench.compose import Args, Session, case_from_cfg, conf_dir, plan_run, strip_overrides
+from bench.config import ConfigError, build_params
 
 EXIT_USAGE = 2
-GROUPS = ("problem", "solver", "suite", "report")
-USAGE = """usage: lapbench <command> [options] [hydra overrides]
+USAGE = """usage: lapbench <command> [options] [overrides]      (lapbench <command> --help: its options)
 
 commands:
   run      run one case, a --multirun sweep, or a named suite (suite=<name>)
-  list     problems, solvers (one line each) and which pairings are supported
-  report   tables of the records (options: report.<key>=...)
+  list     suites, problems, solvers and which pairings are supported (--verbose: solver options)
+  report   tables and figures of the records (options: report.<key>=...)
   check    compare a suite's records with results/baseline/<suite>.json (exit 0 / 1 regression)
   baseline write results/baseline/<suite>.json from a suite's records (options: check.<key>=...)
-  tones    membrane frequencies of eigen records: speed=C or tension=T density=RHO (bench/tones.py)
+  tones    membrane frequencies of eigen records: speed=C or tension=T density=RHO
   conform  run the solver conformance checks on one solver config (a plug-in's: --config-dir DIR)
+
+options: --version, --help
 
 examples:
   lapbench run problem=peak solver=fd9 solver.n=128
@@ -31,17 +34,29 @@ examples:
   lapbench report report.suite=default
   lapbench conform --config-dir examples/sor_solver/conf solver=sor solver.n=16
 """
+RUN_USAGE = """usage: lapbench run [--multirun] [--config-dir DIR] [--config-name NAME] [overrides]
 
+  problem=<name> solver=<name> [problem.<knob>=V] [solver.<option>=V]   one case -> one record
+  --multirun a=1,2 b=x,y                                                 every combination
+  suite=<name>                                                           a named sweep (conf/suite/)
+  hydra/launcher=parallel | slurm | slurm_local                          one Hydra job per case
+  seed=, threads=, budget.time_limit=, budget.train_time=, budget.memory_limit_mb=,
+  timing.repeats=, timing.min_time=, timing.max_time=, results_dir=, force=true, save_field=true
+Expressions must be quoted for the shell and for Hydra: 'problem.u="exp(x)*sin(3*y)"'.
+A rerun skips cases whose record exists (force=true reruns them); Ctrl-C keeps finished records.
+"""
+LIST_USAGE = """usage: lapbench list [--verbose] [--config-dir DIR]
 
-def conf_dir() -> Path:
-    """The Hydra tree: conf/ beside the source checkout, or bench/conf inside an installed wheel."""
-    here = Path(__file__).resolve().parent
-    for cand in (here.parent / "conf", here / "conf"):
-        if (cand / "config.yaml").is_file():
-            return cand
-    import importlib.resources
+Suites, problems and solvers (one line each; --verbose adds every solver's options), then the
+supported pairings, one table per domain kind.
+"""
+REPORT_USAGE = """usage: lapbench report [--config-dir DIR] [report.<key>=...]
 
-    return Path(str(importlib.resources.files("bench.conf")))
+  report.name=NAME     output folder results/reports/NAME/
+  report.suite=NAME    only records of that suite;  report.problem=[..] report.solver=[..]
+  report.results=[DIR, ...]  results folders to read;  report.formats=[md, csv, tex, html]
+Options and their defaults: conf/report/default.yaml.
+"""
 
 
 def fail(msg: str) -> "NoReturn":  # noqa: F821
@@ -49,350 +64,18 @@ def fail(msg: str) -> "NoReturn":  # noqa: F821
     raise SystemExit(EXIT_USAGE)
 
 
-# ------------------------------------------------------------------------------------------------
-# Argument handling shared by the Hydra-based commands
-# ------------------------------------------------------------------------------------------------
-class Args:
-    """Hydra's own flags that lapbench honours, and the overrides."""
-
-    def __init__(self, argv: list[str]):
-        self.multirun = False
-        self.config_dirs: list[str] = []
-        self.config_name = "config"
-        self.overrides: list[str] = []
-        self.help = False
-        it = iter(argv)
-        for a in it:
-            if a in ("-m", "--multirun"):
-                self.multirun = True
-            elif a in ("-cd", "--config-dir"):
-                self.config_dirs.append(self._value(a, it))
-            elif a.startswith("--config-dir="):
-                self.config_dirs.append(a.split("=", 1)[1])
-            elif a in ("-cn", "--config-name"):
-                self.config_name = self._value(a, it)
-            elif a.startswith("--config-name="):
-                self.config_name = a.split("=", 1)[1]
-            elif a in ("-h", "--help"):
-                self.help = True
-            elif a.startswith("-"):
-                fail(f"unknown option {a!r}; options: --multirun, --config-dir DIR, --config-name NAME")
-            else:
-                self.overrides.append(a)
-        for d in self.config_dirs:
-            if not Path(d).is_dir():
-                fail(f"`--config-dir` {d!r} is not a folder")
-        self.overrides = replace_mapping_overrides(self.overrides)
-
-    @staticmethod
-    def _value(flag, it):
-        try:
-            return next(it)
-        except StopIteration:
-            fail(f"`{flag}` needs a value")
-
-    def hydra_argv(self) -> list[str]:
-        out = []
-        for d in self.config_dirs:
-            out += ["--config-dir", str(Path(d).resolve())]
-        if self.config_name != "config":
-            out += ["--config-name", self.config_name]
-        return out
-
-    def searchpath_overrides(self) -> list[str]:
-        if not self.config_dirs:
-            return []
-        return ["hydra.searchpath=[" + ",".join(f"file://{Path(d).resolve()}" for d in self.config_dirs) + "]"]
-
-
-def replace_mapping_overrides(overrides: list[str]) -> list[str]:
-    """``key={...}`` replaces the node instead of merging into it.
-
-    Hydra merges a mapping value into the existing node, so ``problem.domain={kind: disk,
-    radius: 2}`` would keep the rectangle's x0..y1 and fail. lapbench rewrites it to
-    ``~key`` + ``+key={...}``, Hydra's own spelling of a replacement.
-    """
-    from hydra.core.override_parser.overrides_parser import OverridesParser
-
-    out = []
-    parser = OverridesParser.create()
-    for o in overrides:
-        try:
-            p = parser.parse_override(o)
-        except Exception:  # noqa: BLE001  (reported with context by the validation that follows)
-            out.append(o)
-            continue
-        if (not p.is_add() and not p.is_delete() and not p.is_sweep_override() and p.package is None
-                and "." in p.key_or_group and not p.key_or_group.startswith("hydra")
-                and isinstance(p.value(), dict)):
-            key = p.key_or_group
-            out += [f"~{key}", f"+{key}={o.split('=', 1)[1]}"]
-        else:
-            out.append(o)
-    return out
-
-
-def _group_options(group: str, overrides: list[str] | None = None) -> list[str]:
-    """Options of a config group; pass the `hydra.searchpath` override to include --config-dir folders."""
-    from hydra.core.global_hydra import GlobalHydra
-
-    searchpath = [o for o in overrides or [] if o.startswith("hydra.searchpath=")]
-    try:
-        loader = GlobalHydra.instance().config_loader()
-        if searchpath:
-            return sorted(set(loader.get_group_options(group, config_name=_CONFIG_NAME[0], overrides=searchpath)))
-        return sorted(loader.get_group_options(group))
-    except Exception:  # noqa: BLE001
-        return []
-
-
-def _translate_hydra_error(exc: Exception, overrides: list[str]) -> str:
-    """One line for Hydra's multi-line composition errors."""
-    msg = str(exc)
-    first = msg.strip().splitlines()[0] if msg.strip() else type(exc).__name__
-    if "Could not find '" in msg:
-        missing = msg.split("Could not find '", 1)[1].split("'", 1)[0]
-        group, _, option = missing.rpartition("/")
-        if group:
-            opts = _group_options(group, overrides)
-            return f"`{group}` must be one of: {', '.join(opts)}; got {option!r}"
-        return f"config {missing!r} not found"
-    if "Could not override '" in msg:
-        key = msg.split("Could not override '", 1)[1].split("'", 1)[0]
-        parent = key.rpartition(".")[0]
-        known = ""
-        try:
-            cfg = _compose_cached(tuple(o for o in overrides if not o.startswith(key + "=")))
-            node = cfg
-            for part in parent.split(".") if parent else []:
-                node = node[part]
-            known = "; known fields: " + ", ".join(sorted(str(k) for k in node.keys()))
-        except Exception:  # noqa: BLE001
-            pass
-        return f"`{key}` is not a known field{known}"
-    if "Error parsing override" in msg or "mismatched input" in msg or "extraneous input" in msg:
-        return f"malformed override: {first}"
-    return first
-
-
-_COMPOSE_CACHE: dict = {}
-
-
-def _compose_cached(overrides: tuple[str, ...]):
-    from hydra import compose
-
-    if overrides not in _COMPOSE_CACHE:
-        _COMPOSE_CACHE[overrides] = compose(_CONFIG_NAME[0], overrides=list(overrides), return_hydra_config=True)
-    return _COMPOSE_CACHE[overrides]
-
-
-_CONFIG_NAME = ["config"]
-_GROUP_CACHE: dict[str, bool] = {}
-
-
-def _is_group(key: str) -> bool:
-    """Whether `key` names a config group (composed by Hydra) rather than a value."""
-    if key not in _GROUP_CACHE:
-        _GROUP_CACHE[key] = "/" in key or bool(_group_options(key))
-    return _GROUP_CACHE[key]
-
-
-def compose_case(overrides: list[str]):
-    """Compose a full config for one case, Hydra semantics, errors as ConfigError (one line).
-
-    Group choices (``problem=...``) are composed by Hydra once per distinct choice set; dotted
-    value overrides are then applied on a struct copy, which is how Hydra applies them too.
-    """
-    from hydra.core.override_parser.overrides_parser import OverridesParser
-    from omegaconf import OmegaConf
-    from omegaconf.errors import OmegaConfBaseException
-
-    parser = OverridesParser.create()
-    try:
-        parsed = parser.parse_overrides(overrides)
-    except Exception as exc:  # noqa: BLE001
-        raise ConfigError(_translate_hydra_error(exc, overrides)) from None
-    structural, values = [], []
-    for o, p in zip(overrides, parsed):
-        key = p.key_or_group
-        if p.is_sweep_override():
-            raise ConfigError(f"`{key}`: sweep values need --multirun (got {o!r})")
-        if p.is_add() and "." not in key and not key.startswith("hydra") and not _group_options(key):
-            # `+foo=1` would add a root field that nothing reads: a typo, refused like any unknown key
-            known = ", ".join(sorted(str(k) for k in _compose_cached(()).keys() if k != "hydra"))
-            raise ConfigError(f"`{key}` is not a known field; known fields: {known}")
-        if not key.startswith("hydra") and not p.is_add() and not p.is_delete() and p.package is None \
-                and ("." in key or not _is_group(key)):
-            values.append((key, p.value(), o))
-        else:
-            structural.append(o)
-    try:
-        base = _compose_cached(tuple(structural))
-    except ConfigError:
-        raise
-    except Exception as exc:  # noqa: BLE001
-        raise ConfigError(_translate_hydra_error(exc, structural)) from None
-    # Copy without Hydra's own (large) node, keeping what lapbench reads of it: the group
-    # choices and config sources. Copying the whole tree cost ~0.1 s per case when planning.
-    plain = OmegaConf.to_container(OmegaConf.masked_copy(base, [k for k in base if k != "hydra"]),
-                                   resolve=False)
-    if "hydra" in base:
-        runtime = {}
-        for key in ("choices", "config_sources"):
-            node = OmegaConf.select(base, f"hydra.runtime.{key}", default=None)
-            if node is not None:
-                runtime[key] = OmegaConf.to_container(node, resolve=False)
-        plain["hydra"] = {"runtime": runtime}
-    cfg = OmegaConf.create(plain)
-    OmegaConf.set_struct(cfg, True)
-    for key, value, text in values:
-        try:
-            OmegaConf.update(cfg, key, value, merge=True)
-        except OmegaConfBaseException:
-            parent = key.rpartition(".")[0]
-            try:
-                node = OmegaConf.select(cfg, parent) if parent else cfg
-                known = "; known fields: " + ", ".join(sorted(str(k) for k in node.keys()))
-            except Exception:  # noqa: BLE001
-                known = ""
-            raise ConfigError(f"`{key}` is not a known field{known}") from None
-    return cfg
-
-
-def case_from_cfg(cfg):
-    """Case plus run options from a composed config (validated; ConfigError on bad input)."""
-    import dataclasses
-
-    from omegaconf import OmegaConf
-
-    from bench.run import Case
-
-    @dataclasses.dataclass
-    class RootOptions:
-        seed: int = 0
-        threads: int = 1
-        results_dir: str = "results"
-        force: bool = False
-        save_field: bool = False
-        case_index: int | None = None
-
-        def __post_init__(self):
-            if self.seed < 0:
-                raise ConfigError(f"`seed` must be a non-negative integer, got {self.seed}")
-            positive("threads", self.threads, integer=True, maximum=4096)
-
-    label = None
-    if "hydra" in cfg:
-        choices = OmegaConf.select(cfg, "hydra.runtime.choices", default=None)
-        label = choices.get("problem") if choices is not None else None
-        cfg = OmegaConf.masked_copy(cfg, [k for k in cfg.keys() if k != "hydra"])
-    try:
-        plain = OmegaConf.to_container(cfg, resolve=True)
-    except Exception as exc:  # noqa: BLE001
-        raise ConfigError(f"cannot resolve config: {str(exc).splitlines()[0]}") from None
-    opts = build_params(RootOptions, {k: plain.get(k) for k in ("seed", "threads", "results_dir", "force",
-                                                                "save_field", "case_index")
-                                      if plain.get(k) is not None})
-    if not isinstance(plain.get("problem"), dict) or not isinstance(plain.get("solver"), dict):
-        raise ConfigError("`problem` and `solver` must be config groups (problem=<name> solver=<name>)")
-    if label is None:
-        try:
-            from hydra.core.hydra_config import HydraConfig
-
-            label = HydraConfig.get().runtime.choices.get("problem")
-        except Exception:  # noqa: BLE001
-            label = None
-    suite = (plain.get("suite") or {}).get("name")
-    case = Case(problem=plain["problem"], solver=plain["solver"], problem_label=label or plain["problem"].get("name"),
-                seed=opts.seed, threads=opts.threads, budget=plain.get("budget") or {}, suite=suite,
-                save_field=opts.save_field)
-    return case, opts
-
-
-def _strip(overrides: list[str], keys: tuple[str, ...]) -> list[str]:
-    return [o for o in overrides if o.split("=", 1)[0].lstrip("+~") not in keys]
-
-
-def _validate(cfg, overrides: list[str], suite=None) -> None:
-    """Build and prepare one composed case; a bad field's error names the file or override that set it."""
-    from bench.plugins import annotate_config_error
-    from bench.run import prepare
+def version() -> str:
+    from importlib import metadata
 
     try:
-        case, opts = case_from_cfg(cfg)
-        prepare(case, opts.results_dir)
-    except ConfigError as exc:
-        raise annotate_config_error(exc, cfg, overrides, suite=suite) from None
-
-
-def plan_run(args: Args):
-    """Compose and validate every case of the request; returns (cases as override lists, suite size).
-
-    Raises ConfigError on the first bad case, before anything runs.
-    """
-    from hydra._internal.core_plugins.basic_sweeper import BasicSweeper
-    from hydra.core.override_parser.overrides_parser import OverridesParser
-
-    from bench.suites import expand_suite
-
-    base = args.searchpath_overrides() + args.overrides
-    if args.multirun:
-        try:
-            parsed = OverridesParser.create().parse_overrides(base)
-        except Exception as exc:  # noqa: BLE001
-            raise ConfigError(_translate_hydra_error(exc, base)) from None
-        combos = [c for batch in BasicSweeper.split_arguments(parsed, None) for c in batch]
-    else:
-        combos = [base]
-    planned = []
-    for combo in combos:
-        cfg = compose_case(combo)
-        suite = cfg.get("suite") or {}
-        if suite.get("name"):
-            if args.multirun and any(OverridesParser.create().parse_override(o).is_sweep_override()
-                                     for o in args.overrides):
-                raise ConfigError("`suite` cannot be combined with --multirun sweep values; "
-                                  "put the sweep in the suite file")
-            from omegaconf import OmegaConf
-
-            cases = expand_suite(OmegaConf.to_container(suite, resolve=True))
-            if not cases:
-                raise ConfigError(f"`suite` {suite.get('name')!r} has no cases")
-            rest = _strip(combo, ("suite", "case_index"))
-            for case_ov in cases:
-                ccfg = compose_case(case_ov + rest)
-                _validate(ccfg, rest, suite=(suite.get("name"), case_ov))
-            return [combo], len(cases)
-        _validate(cfg, combo)
-        planned.append(combo)
-    return planned, None
+        return metadata.version("lapbench")
+    except metadata.PackageNotFoundError:
+        return "unknown (not installed)"
 
 
 # ------------------------------------------------------------------------------------------------
-# The Hydra job
+# run
 # ------------------------------------------------------------------------------------------------
-_PROGRESS = {"bar": None, "done": 0}
-
-
-def _progress_line(text: str, total: int | None):
-    bar = _PROGRESS.get("bar")
-    if bar is None and total and sys.stderr.isatty():
-        from tqdm import tqdm
-
-        bar = _PROGRESS["bar"] = tqdm(total=total, unit="case", file=sys.stderr, dynamic_ncols=True)
-    _PROGRESS["done"] += 1
-    if bar is not None:
-        bar.update(1)
-        bar.set_postfix_str(text[:60])
-        if _PROGRESS["done"] >= (total or 0):
-            bar.close()
-            _PROGRESS["bar"] = None
-    else:
-        # one write per line: parallel workers share this stream and must not interleave mid-line
-        sys.stdout.write(text + "\n")
-        sys.stdout.flush()
-
-
 def _worker_share(hc) -> int | None:
     """This worker's share of the cores under the sweep's Hydra launcher (None: sequential)."""
     from omegaconf import OmegaConf
@@ -409,42 +92,33 @@ def _worker_share(hc) -> int | None:
 
 
 def job(cfg) -> None:
-    """Run one case of a run or sweep (called by Hydra's launcher, in any process)."""
+    """Run one case of a sweep under a parallel or cluster launcher (called by Hydra, any process)."""
     from hydra.core.hydra_config import HydraConfig
+    from omegaconf import OmegaConf
 
     from bench.run import execute, prepare
     from bench.suites import expand_suite
+    from bench.sweep import case_line
 
     hc = HydraConfig.get()
-    _CONFIG_NAME[0] = hc.job.config_name or "config"
+    session = Session(config_name=hc.job.config_name or "config")   # Hydra's app context is active
     total = None
     index = cfg.get("case_index")
     suite = cfg.get("suite") or {}
     if suite.get("name") and index is not None:
-        from omegaconf import OmegaConf
-
         cases = expand_suite(OmegaConf.to_container(suite, resolve=True))
         total = len(cases)
-        task = _strip(list(hc.overrides.task), ("suite", "case_index"))
-        cfg = compose_case(cases[int(index)] + task)
+        task = strip_overrides(list(hc.overrides.task), ("suite", "case_index"))
+        cfg = session.compose(cases[int(index)] + task)
     case, opts = case_from_cfg(cfg)
     if suite.get("name") and index is not None:
         case.suite = suite.get("name")  # the case was composed without `suite=`; its record keeps the name
     prep = prepare(case, opts.results_dir)
     rec, skipped = execute(prep, force=opts.force, cores=_worker_share(hc))
-    n = (index + 1) if index is not None else (hc.job.num + 1 if hc.mode.name == "MULTIRUN" else 1)
-    # eigen problems are judged by the worst relative eigenvalue error (bench/eigen_metrics.py)
-    ename = "eig_rel_max" if rec["problem"].get("kind") == "eigen" else "rel_l2"
-    err = rec.get("metrics", {}).get(ename)
-    t = rec.get("timings", {}).get("total")
-    line = (f"[{n}{'/' + str(total) if total else ''}] {rec['problem']['id']} {rec['solver']['name']} "
-            f"{rec['solver']['resolution_label']} seed={rec['seed']}: {rec['status']}"
-            f"{'' if err is None else f' {ename}={err:.3e}'}{'' if t is None else f' time={t:.3g}s'}"
-            f"{' (record exists, skipped)' if skipped else ''}"
-            f"{'' if rec['status'] == 'ok' else ' - ' + str(rec.get('reason', ''))[:200]}")
-    _progress_line(line, total)
-    if hc.mode.name != "MULTIRUN":
-        print(f"record: {prep.path}")
+    n = (index + 1) if index is not None else hc.job.num + 1
+    # one write per line: parallel workers share this stream and must not interleave mid-line
+    sys.stdout.write(case_line(rec, n, total, skipped) + "\n")
+    sys.stdout.flush()
 
 
 def _hydra_main(args: Args, overrides: list[str], multirun: bool) -> int:
@@ -463,111 +137,141 @@ def _hydra_main(args: Args, overrides: list[str], multirun: bool) -> int:
 
 
 def cmd_run(argv: list[str]) -> int:
-    from hydra import initialize_config_dir
+    from bench.sweep import run_sequential
 
     args = Args(argv)
     if args.help:
-        print(USAGE)
+        print(RUN_USAGE)
         return 0
-    _CONFIG_NAME[0] = args.config_name
-    with initialize_config_dir(config_dir=str(conf_dir()), version_base="1.3"):
+    with Session(args) as session:
+        plan = plan_run(session, args)
+    results = plan.cases[0][1].results_dir if plan.cases else "results"
+    if plan.suite:
+        print(f"lapbench: suite {plan.suite!r} of {len(plan.cases)} cases; records under {results}/runs/",
+              file=sys.stderr)
+    if plan.sequential:
         try:
-            planned, suite_size = plan_run(args)
-        except ConfigError as exc:
-            fail(str(exc))
-    if suite_size is not None:
-        overrides = _strip(args.overrides, ("case_index",)) + [f"case_index=range(0,{suite_size})"]
-        print(f"lapbench: suite of {suite_size} cases; records under "
-              f"{_results_dir_of(planned[0])}/runs/", file=sys.stderr)
-        code = _hydra_main(args, overrides, multirun=True)
-    else:
-        code = _hydra_main(args, args.overrides, multirun=args.multirun)
-    return code
-
-
-def _results_dir_of(overrides: list[str]) -> str:
-    for o in overrides:
-        if o.startswith("results_dir="):
-            return o.split("=", 1)[1]
-    return "results"
+            records = run_sequential(plan.cases)
+        except KeyboardInterrupt:
+            print("lapbench: interrupted; finished records are kept, rerun the same command to resume",
+                  file=sys.stderr)
+            return 130
+        if len(plan.cases) == 1 and not plan.suite:
+            prep = plan.cases[0][0]
+            if records[0].get("status") == "unsupported":
+                print(f"lapbench: solver {prep.solver.name} does not support problem {prep.problem.name}: "
+                      f"{records[0].get('reason')} (recorded as unsupported)", file=sys.stderr)
+            print(f"record: {prep.path}")
+        return 0
+    if plan.suite:
+        overrides = strip_overrides(args.overrides, ("case_index",)) + [f"case_index=range(0,{len(plan.cases)})"]
+        return _hydra_main(args, overrides, multirun=True)
+    return _hydra_main(args, args.overrides, multirun=True)
 
 
 # ------------------------------------------------------------------------------------------------
 # list and report
 # ------------------------------------------------------------------------------------------------
+def _words(text: str, width: int) -> str:
+    """`text` cut to `width` characters at a word boundary (with an ellipsis when cut)."""
+    text = " ".join(str(text).split())
+    if len(text) <= width:
+        return text
+    cut = text[: width - 1].rsplit(" ", 1)[0].rstrip(",;:")
+    return cut + "…"
+
+
 def cmd_list(argv: list[str]) -> int:
-    from hydra import initialize_config_dir
+    from omegaconf import OmegaConf
 
     from bench.config import describe_fields
     from bench.problems import make_problem
     from bench.run import make_solver
     from solvers import SOLVERS
 
-    args = Args(argv)
-    with initialize_config_dir(config_dir=str(conf_dir()), version_base="1.3"):
-        problems = {}
-        for name in _group_options("problem", args.searchpath_overrides()):
+    verbose = any(a in ("-v", "--verbose") for a in argv)
+    args = Args([a for a in argv if a not in ("-v", "--verbose")])
+    if args.help:
+        print(LIST_USAGE)
+        return 0
+    sp = args.searchpath_overrides()
+    with Session(args) as session:
+        suites = {}
+        for name in session.group_options("suite", sp):
+            if name == "none":
+                continue
             try:
-                cfg = compose_case(args.searchpath_overrides() + [f"problem={name}"])
-                from omegaconf import OmegaConf
+                s = OmegaConf.to_container(session.compose(sp + [f"suite={name}"]).suite, resolve=True)
+                from bench.suites import expand_suite
 
+                suites[name] = (len(expand_suite(s)), s.get("description") or "")
+            except Exception as exc:  # noqa: BLE001
+                suites[name] = (None, f"(invalid: {exc})")
+        problems = {}
+        for name in session.group_options("problem", sp):
+            try:
+                cfg = session.compose(sp + [f"problem={name}"])
                 problems[name] = make_problem(OmegaConf.to_container(cfg.problem, resolve=True))
             except Exception as exc:  # noqa: BLE001
                 problems[name] = exc
-        solver_names = _group_options("solver", args.searchpath_overrides())
         solvers = {}
-        for name in solver_names:
+        for name in session.group_options("solver", sp):
             try:
-                cfg = compose_case(args.searchpath_overrides() + [f"solver={name}"])
-                from omegaconf import OmegaConf
-
+                cfg = session.compose(sp + [f"solver={name}"])
                 solvers[name] = make_solver(OmegaConf.to_container(cfg.solver, resolve=True))
             except Exception as exc:  # noqa: BLE001
                 solvers[name] = exc
-    print("problems (conf/problem/<name>.yaml):")
+    print("suites (conf/suite/<name>.yaml; lapbench run suite=<name>):")
+    for name, (n, text) in suites.items():
+        print(f"  {name:<14} {'' if n is None else f'{n:>4} cases'}  {_words(text, 66)}")
+    print("\nproblems (conf/problem/<name>.yaml):")
     for name, p in problems.items():
         if isinstance(p, Exception):
-            print(f"  {name:<14} (invalid config: {p})")
+            print(f"  {name:<16} (invalid config: {p})")
         else:
-            print(f"  {name:<14} {p.kind:<8} {p.domain.kind:<10} {p.source[:70]}")
+            print(f"  {name:<16} {p.kind:<8} {p.domain.kind:<10} {_words(p.source, 62)}")
     print("\nsolvers (conf/solver/<name>.yaml):")
     for name, s in solvers.items():
         if isinstance(s, Exception):
             print(f"  {name:<14} (invalid config: {s})")
-        else:
-            print(f"  {name:<14} {s.family:<9} {s.description}  [{describe_fields(s.Params)}]")
+            continue
+        print(f"  {name:<14} {s.family:<9} {_words(s.description, 74)}")
+        if verbose:
+            print(f"  {'':<14} {'':<9} options: {describe_fields(s.Params)}")
     unregistered = sorted(set(SOLVERS) - set(solvers))
     if unregistered:
         print(f"  (registered without a config file: {', '.join(unregistered)})")
-    print("\nsupported pairings (y = runs, . = unsupported):")
     names = [n for n, s in solvers.items() if not isinstance(s, Exception)]
-    width = max([len(n) for n in names] + [4])
-    print(" " * 16 + " ".join(n.rjust(width) for n in names))
-    for pname, p in problems.items():
-        if isinstance(p, Exception):
+    good = {n: p for n, p in problems.items() if not isinstance(p, Exception)}
+    print("\nsupported pairings (y = runs, . = unsupported), by domain kind:")
+    for kind in sorted({p.domain.kind for p in good.values()}):
+        rows = {n: p for n, p in good.items() if p.domain.kind == kind}
+        cols = [n for n in names if any(solvers[n].supports(p)[0] for p in rows.values())]
+        if not cols:
+            print(f"\n  {kind}: no solver")
             continue
-        cells = []
-        for n in names:
-            ok, _ = solvers[n].supports(p)
-            cells.append(("y" if ok else ".").rjust(width))
-        print(f"  {pname:<14}" + " ".join(cells))
+        print(f"\n  {kind:<16}" + " ".join(cols))
+        for pname, p in rows.items():
+            cells = [("y" if solvers[n].supports(p)[0] else ".").center(len(n)) for n in cols]
+            print(f"  {pname:<16}" + " ".join(cells))
+        rest = [n for n in names if n not in cols]
+        if rest:
+            print(f"  {'':<16}(none of: {', '.join(rest)})")
     return 0
 
 
 def cmd_report(argv: list[str]) -> int:
-    from hydra import initialize_config_dir
     from omegaconf import OmegaConf
 
     from bench.report import ReportConfig, write_report
 
     args = Args(argv)
-    _CONFIG_NAME[0] = args.config_name
-    with initialize_config_dir(config_dir=str(conf_dir()), version_base="1.3"):
-        try:
-            cfg = compose_case(args.searchpath_overrides() + args.overrides)
-            rcfg = build_params(ReportConfig, OmegaConf.to_container(cfg.report, resolve=True), prefix="report")
-        except ConfigError as exc:
-            fail(str(exc))
+    if args.help:
+        print(REPORT_USAGE)
+        return 0
+    with Session(args) as session:
+        cfg = session.compose(args.searchpath_overrides() + args.overrides)
+        rcfg = build_params(ReportConfig, OmegaConf.to_container(cfg.report, resolve=True), prefix="report")
     results_dir = OmegaConf.select(cfg, "results_dir") or "results"
     out, table = write_report(rcfg, out_root=Path(results_dir) / "reports")
     from bench.report import to_markdown
@@ -577,27 +281,74 @@ def cmd_report(argv: list[str]) -> int:
     return 0
 
 
-from bench.check import cmd_baseline, cmd_check  # noqa: E402  (the check stage: bench/check.py)
-from bench.plugins import cmd_conform  # noqa: E402  (plug-in conformance: bench/plugins.py)
+# ------------------------------------------------------------------------------------------------
+# check, baseline, conform, tones (their stages: bench/check.py, bench/plugins.py, bench/tones.py)
+# ------------------------------------------------------------------------------------------------
+def cmd_check(argv: list[str]) -> int:
+    from bench import check
 
-def _cmd_tones(argv: list[str]) -> int:
-    from bench.tones import cmd_tones
+    if any(a in ("-h", "--help") for a in argv):
+        print(check.CHECK_USAGE)
+        return 0
+    plan = check.plan_check(argv)
+    _run_first(plan)
+    return check.run_check(plan)
 
-    return cmd_tones(argv)
+
+def cmd_baseline(argv: list[str]) -> int:
+    from bench import check
+
+    if any(a in ("-h", "--help") for a in argv):
+        print(check.CHECK_USAGE)
+        return 0
+    plan = check.plan_check(argv)
+    _run_first(plan)
+    return check.run_baseline(plan)
+
+
+def _run_first(plan) -> None:
+    """check.run=true: run the suite (skipping cases whose record exists) before reading records."""
+    if not plan.ccfg.run:
+        return
+    code = cmd_run(plan.args.hydra_argv() + plan.args.overrides)
+    if code != 0:
+        fail(f"the run of suite {plan.name!r} failed (exit code {code}); no comparison made")
+
+
+def cmd_conform(argv: list[str]) -> int:
+    from bench.plugins import conform
+
+    return conform(argv)
+
+
+def cmd_tones(argv: list[str]) -> int:
+    from bench.tones import cmd_tones as tones
+
+    if any(a in ("-h", "--help") for a in argv):
+        print((tones.__doc__ or "").strip())
+        return 0
+    return tones(argv)
 
 
 COMMANDS = {"run": cmd_run, "list": cmd_list, "report": cmd_report, "check": cmd_check, "baseline": cmd_baseline,
-            "conform": cmd_conform, "tones": _cmd_tones}
+            "conform": cmd_conform, "tones": cmd_tones}
 
 
 def main(argv: list[str] | None = None) -> int:
+    import difflib
+
     argv = list(sys.argv[1:] if argv is None else argv)
     if not argv or argv[0] in ("-h", "--help", "help"):
         print(USAGE)
         return 0 if argv else EXIT_USAGE
+    if argv[0] in ("-V", "--version"):
+        print(f"lapbench {version()}")
+        return 0
     cmd, rest = argv[0], argv[1:]
     if cmd not in COMMANDS:
-        fail(f"unknown command {cmd!r}; commands: {', '.join(COMMANDS)}")
+        close = difflib.get_close_matches(cmd, list(COMMANDS), n=1, cutoff=0.6)
+        fail(f"unknown command {cmd!r}{f'; did you mean {close[0]!r}?' if close else ''}; "
+             f"commands: {', '.join(COMMANDS)}")
     try:
         code = COMMANDS[cmd](rest)
     except ConfigError as exc:

@@ -42,7 +42,7 @@ def seed_everything(seed: int) -> None:
 
 
 def _conf_problem_dir() -> Path:
-    from bench.cli import conf_dir
+    from bench.compose import conf_dir
 
     return conf_dir() / "problem"
 

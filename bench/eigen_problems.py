@@ -439,7 +439,7 @@ def _compute_reference(domain, recipe: dict) -> dict:
 
     from tqdm import tqdm
 
-    from solvers.eigen import fem_eigen
+    from solvers.fem import fem_eigen
 
     order, k = int(recipe["order"]), int(recipe["k"])
     meshes = _mesh_levels(domain, int(recipe["triangles"]), int(recipe["levels"]))

@@ -148,15 +148,11 @@ def parse(text: str, field: str = "problem.u") -> sp.Expr:
 
 
 def _numeric(expr: sp.Expr):
-    """Vectorised numpy function of points (m, 2) for a sympy expression in x, y."""
-    fn = sp.lambdify((X, Y), expr, modules="numpy")
+    """Vectorised numpy function of points (m, 2) for a sympy expression in x, y; evaluates on
+    tensor grids by broadcasting (bench.fields.Field)."""
+    from bench.fields import Field
 
-    def f(points):
-        p = np.asarray(points, dtype=float)
-        val = fn(p[:, 0], p[:, 1])
-        return np.broadcast_to(np.asarray(val, dtype=float), (len(p),)).copy()
-
-    return f
+    return Field(sp.lambdify((X, Y), expr, modules="numpy"))
 
 
 def _vanishes(expr: sp.Expr, f, u) -> bool:

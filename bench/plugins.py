@@ -22,7 +22,7 @@ from pathlib import Path
 from bench.config import ConfigError
 
 __all__ = ["import_object", "load_plugin_class", "check_contract", "make_plugin_solver", "provenance",
-           "CONTRACT_ATTRIBUTES", "CONTRACT_METHODS", "locate_config_file", "annotate_config_error"]
+           "CONTRACT_ATTRIBUTES", "CONTRACT_METHODS"]
 
 FIELD = "solver._target_"
 # Class attributes the harness reads from every solver (records, `lapbench list`, conformance).
@@ -215,54 +215,6 @@ def make_plugin_solver(cfg: dict):
 # ------------------------------------------------------------------------------------------------
 # Naming the config file behind a bad field
 # ------------------------------------------------------------------------------------------------
-_FIELD_RE = re.compile(r"^`(problem|solver)\.([^`.\[]+)")
-
-
-def locate_config_file(cfg, group: str) -> Path | None:
-    """The YAML file that supplied config group `group` of a composed config (Hydra's search path)."""
-    from omegaconf import OmegaConf
-
-    choice = OmegaConf.select(cfg, f"hydra.runtime.choices.{group}", default=None)
-    sources = OmegaConf.select(cfg, "hydra.runtime.config_sources", default=None) or []
-    if not choice:
-        return None
-    for src in sources:
-        if src.get("schema") != "file" or not src.get("path"):
-            continue
-        cand = Path(src["path"]) / group / f"{choice}.yaml"
-        if cand.is_file():
-            return cand
-    return None
-
-
-def annotate_config_error(exc: ConfigError, cfg, overrides: list[str], suite=None) -> ConfigError:
-    """The same error, saying where the bad ``problem.*``/``solver.*`` field was set.
-
-    ``suite`` is ``(suite name, the case's overrides from the suite file)`` for suite cases.
-    """
-    msg = str(exc)
-    m = _FIELD_RE.match(msg)
-    if m is None or cfg is None or " (set " in msg:
-        return exc
-    group, key = m.group(1), m.group(2)
-
-    def sets(o: str) -> bool:
-        # `~key` only deletes (the rewrite of a mapping value): the `+key=...` after it sets it
-        return not o.startswith("~") and o.split("=", 1)[0].lstrip("+") == f"{group}.{key}"
-
-    for o in overrides:
-        if sets(o) and not o.startswith("hydra."):
-            return ConfigError(f"{msg} (set on the command line: {o!r})")
-    if suite is not None:
-        for o in suite[1]:
-            if sets(o):
-                return ConfigError(f"{msg} (set by suite {suite[0]!r}: {o!r})")
-    path = locate_config_file(cfg, group)
-    if path is None:
-        return exc
-    return ConfigError(f"{msg} (set in {path})")
-
-
 # ------------------------------------------------------------------------------------------------
 # `lapbench conform`: the conformance suite against a user's solver config
 # ------------------------------------------------------------------------------------------------
@@ -348,33 +300,32 @@ def format_conformance(rows) -> str:
     return "\n".join(lines)
 
 
-def cmd_conform(argv: list[str]) -> int:
+def conform(argv: list[str]) -> int:
     """`lapbench conform`: run the conformance checks against one solver config; exit 0, 1 or 2."""
     import sys
 
-    from hydra import initialize_config_dir
     from omegaconf import OmegaConf
 
-    from bench import cli, conformance
+    from bench import conformance
+    from bench.compose import Args, Session, annotate_config_error, locate_config_file
     from bench.run import make_solver
 
-    args = cli.Args(argv)
+    args = Args(argv)
     if args.help:
         print(CONFORM_USAGE)
         return 0
     if args.multirun:
-        cli.fail("`--multirun` does not apply to conform: check one solver config at a time")
+        raise ConfigError("`--multirun` does not apply to conform: check one solver config at a time")
     if not any(o.split("=", 1)[0] == "solver" for o in args.overrides):
-        cli.fail("`solver` is required: lapbench conform [--config-dir DIR] solver=<name>")
-    cli._CONFIG_NAME[0] = args.config_name
+        raise ConfigError("`solver` is required: lapbench conform [--config-dir DIR] solver=<name>")
     cfg = None
-    with initialize_config_dir(config_dir=str(cli.conf_dir()), version_base="1.3"):
+    with Session(args) as session:
         try:
-            cfg = cli.compose_case(args.searchpath_overrides() + args.overrides)
+            cfg = session.compose(args.searchpath_overrides() + args.overrides)
             scfg = OmegaConf.to_container(cfg.solver, resolve=True)
             solver = make_solver(scfg)
         except ConfigError as exc:
-            cli.fail(str(annotate_config_error(exc, cfg, args.overrides)))
+            raise annotate_config_error(exc, cfg, args.overrides) from None
     where = locate_config_file(cfg, "solver")
     origin = scfg.get("_target_") or f"built-in {type(solver).__module__}.{type(solver).__name__}"
     print(f"conformance of solver {solver.name!r} ({origin}{f', {where}' if where else ''}), "

@@ -17,6 +17,7 @@ import numpy as np
 
 from bench.config import ConfigError, build_params, positive
 from bench.domains import Domain, Rectangle, make_domain
+from bench.fields import Field
 
 __all__ = ["Problem", "PROBLEMS", "make_problem", "BoundaryDataError", "register_problem"]
 
@@ -88,6 +89,14 @@ class Problem:
             return np.zeros(len(points))
         return np.asarray(self.f(points), dtype=float)
 
+    def f_on_grid(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """f on the tensor grid x by y (broadcast where f is a `bench.fields.Field`)."""
+        from bench.fields import on_grid
+
+        if self.f is None:
+            return np.zeros((len(x), len(y)))
+        return on_grid(self.f, x, y)
+
     def eval_set(self, seed: int = 0):
         es = self.domain.eval_set(seed=seed, level=self.eval_level)
         if self.eval_exclude is None:
@@ -157,11 +166,15 @@ def sine(p: SineParams) -> Problem:
     a, b = d.lengths
     lam = math.pi ** 2 * (p.k ** 2 / a ** 2 + p.l ** 2 / b ** 2)
 
-    def u(pts):
-        return (np.sin(p.k * np.pi * (pts[:, 0] - d.x0) / a)
-                * np.sin(p.l * np.pi * (pts[:, 1] - d.y0) / b))
+    def sx(x):
+        return np.sin(p.k * np.pi * (x - d.x0) / a)
 
-    return Problem("sine", "poisson", d, f=lambda pts: lam * u(pts), g=lambda pts: np.zeros(len(pts)),
+    def sy(y):
+        return np.sin(p.l * np.pi * (y - d.y0) / b)
+
+    u = Field(lambda x, y: sx(x) * sy(y))
+    f = Field(lambda x, y: (lam * sx(x)) * sy(y))
+    return Problem("sine", "poisson", d, f=f, g=Field(lambda x, y: 0.0 * (x + y)),
                    exact=u, params={"k": p.k, "l": p.l},
                    source="closed form: u = sin(k pi x) sin(l pi y), f = pi^2 (k^2/a^2 + l^2/b^2) u",
                    eval_level=max(48, 8 * max(p.k, p.l)))
@@ -185,9 +198,7 @@ def harmonic(p: HarmonicParams) -> Problem:
     d = _rect(p.domain)
     w = p.omega
 
-    def u(pts):
-        return np.exp(w * pts[:, 0]) * np.cos(w * pts[:, 1])
-
+    u = Field(lambda x, y: np.exp(w * x) * np.cos(w * y))
     return Problem("harmonic", "laplace", d, f=None, g=u, exact=u, params={"omega": w},
                    source="closed form: u = exp(omega x) cos(omega y) = Re exp(omega z)")
 
@@ -318,15 +329,16 @@ def peak(p: PeakParams) -> Problem:
     d = Rectangle()
     al, xc, yc = p.alpha, p.xc, p.yc
 
-    def rho2(pts):
-        return (pts[:, 0] - xc) ** 2 + (pts[:, 1] - yc) ** 2
+    def rho2(x, y):
+        return (x - xc) ** 2 + (y - yc) ** 2
 
-    def u(pts):
-        return np.exp(-al * rho2(pts))
+    u = Field(lambda x, y: np.exp(-al * rho2(x, y)))
 
-    def f(pts):
-        r2 = rho2(pts)
+    def fxy(x, y):
+        r2 = rho2(x, y)
         return 4 * al * (1 - al * r2) * np.exp(-al * r2)
+
+    f = Field(fxy)
 
     width = 1 / math.sqrt(al)
     level = int(min(MAX_EVAL_LEVEL, max(48, 4 / width)))

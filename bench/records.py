@@ -11,7 +11,7 @@ import warnings
 from functools import lru_cache
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "STATUSES", "config_hash", "record_path", "write_atomic", "write_record", "read_record",
+__all__ = ["SCHEMA_VERSION", "STATUSES", "config_hash", "problem_id", "problem_config_hash", "record_path", "write_atomic", "write_record", "read_record",
            "iter_records", "load_records", "to_frame", "environment", "RecordWarning"]
 
 SCHEMA_VERSION = 1
@@ -30,6 +30,63 @@ def canonical_json(obj) -> str:
 def config_hash(identity: dict) -> str:
     """SHA-256 of the canonical JSON of a case's identity (problem, solver, seed, threads, budget)."""
     return hashlib.sha256(canonical_json(identity).encode()).hexdigest()
+
+
+def _short_hash(obj, n: int = 6) -> str:
+    return hashlib.sha256(canonical_json(obj).encode()).hexdigest()[:n]
+
+
+def _is_scalar(v) -> bool:
+    return isinstance(v, (str, int, float, bool)) or v is None
+
+
+UNIT_SQUARE = {"kind": "rectangle", "x0": 0.0, "x1": 1.0, "y0": 0.0, "y1": 1.0}
+
+
+def _domain_tag(domain: dict | None) -> str:
+    """``[disk cx=0 cy=0 radius=2]``; empty for the unit square; lists as a short hash."""
+    if not domain or {k: domain.get(k) for k in UNIT_SQUARE} == UNIT_SQUARE and len(domain) == len(UNIT_SQUARE):
+        return ""
+    parts = [str(domain.get("kind", "?"))]
+    for k, v in domain.items():
+        if k == "kind":
+            continue
+        if _is_scalar(v):
+            parts.append(f"{k}={v:g}" if isinstance(v, float) else f"{k}={v}")
+        else:
+            size = f"{len(v)} " if isinstance(v, (list, tuple)) else ""
+            parts.append(f"{size}{k} ~{_short_hash(v)}")
+    return "[" + " ".join(parts) + "]"
+
+
+def problem_config_hash(config: dict | None) -> str:
+    """Hash of a problem's whole config (every knob and the domain): two records with different
+    hashes are different problems, whatever their ids say."""
+    return hashlib.sha256(canonical_json(config or {}).encode()).hexdigest()[:16]
+
+
+def problem_id(label: str, params: dict, domain: dict | None = None, config: dict | None = None,
+               defaults: dict | None = None) -> str:
+    """``sine(k=4,l=4)``, ``expr(u=x*y)[disk cx=0 cy=0 radius=2]``: label, knobs, domain.
+
+    Scalar knobs are shown as they are; list or mapping knobs, and config keys that the builder's
+    knobs do not show (expressions of a custom problem, say), as a short stable hash, so that
+    two different problems never share an id and ids stay readable.
+    """
+    knobs = dict(params)
+    hidden = {}
+    for k, v in (config or {}).items():
+        if k in ("name", "domain") or k in knobs or (k in defaults and defaults[k] == v):
+            continue
+        if _is_scalar(v):
+            knobs[k] = v
+        else:
+            hidden[k] = v
+    flat = ",".join(f"{k}={v}" if _is_scalar(v) else f"{k}=~{_short_hash(v)}" for k, v in sorted(knobs.items()))
+    out = (f"{label}({flat})" if flat else label) + _domain_tag(domain)
+    if hidden:
+        out += f" ~{_short_hash(hidden)}"
+    return out
 
 
 def _slug(text: str) -> str:
@@ -140,7 +197,7 @@ MAX_RECORD_BYTES = 256 * 2 ** 20   # a record with a long history is a few MiB; 
 # Fields the loaders read, with the JSON types a record may hold there (None: the field may be
 # absent or null). A file that breaks one of them is foreign and skipped, never a crash later.
 _SHAPE = {"problem": (dict,), "solver": (dict,), "metrics": (dict, None), "timings": (dict, None),
-          "cost": (dict, None), "budget": (dict, None), "environment": (dict, None), "info": (dict, None),
+          "timing": (dict, None), "cost": (dict, None), "budget": (dict, None), "environment": (dict, None), "info": (dict, None),
           "history": (list, None), "reason": (str, None), "suite": (str, None), "seed": (int, None),
           "threads": (int, None), "case_id": (str, None), "config_hash": (str, None)}
 _NESTED = {("problem", "domain"): (dict, None), ("problem", "label"): (str, None),
@@ -234,6 +291,7 @@ def to_frame(records):
     for r in records:
         m = r.get("metrics") or {}
         t = r.get("timings") or {}
+        rt = r.get("timing") if isinstance(r.get("timing"), dict) else {}
         c = r.get("cost") or {}
         row = {
             "case_id": r.get("case_id"), "suite": r.get("suite"),
@@ -247,6 +305,10 @@ def to_frame(records):
             "h": c.get("h"), "peak_rss_mb": c.get("peak_rss_mb"), "peak_rss_delta_mb": c.get("peak_rss_delta_mb"),
             "t_setup": t.get("setup"), "t_solve": t.get("solve"), "t_evaluate": t.get("evaluate"),
             "t_total": t.get("total"), "t_wall": t.get("wall"),
+            # repeated timing of deterministic methods (bench.run): every repeat's setup + solve
+            "t_min": rt.get("min"), "t_max": rt.get("max"),
+            "repeats": len(rt.get("repeats") or []) or 1, "t_statistic": rt.get("statistic", "single"),
+            "problem_config": r["problem"].get("config_hash") or problem_config_hash(r["problem"].get("config")),
             # one configuration = everything but the seed (reports group seeds by it)
             "config_key": config_hash({"solver": r["solver"].get("config"), "budget": r.get("budget"),
                                        "threads": r.get("threads_requested", r.get("threads"))})[:16],
@@ -259,7 +321,14 @@ def to_frame(records):
         for k, v in (r["solver"].get("resolution") or {}).items():
             row[f"res_{k}"] = v
         rows.append(row)
-    return pd.DataFrame(rows)
+    frame = pd.DataFrame(rows)
+    if len(frame):
+        # a report never combines different problems: one id with several configs gets the hash
+        n_cfg = frame.groupby("problem_id", dropna=False)["problem_config"].transform("nunique")
+        clash = n_cfg > 1
+        frame.loc[clash, "problem_id"] = (frame.loc[clash, "problem_id"] + " #"
+                                          + frame.loc[clash, "problem_config"].str[:6])
+    return frame
 
 
 @lru_cache(maxsize=1)

@@ -8,7 +8,6 @@ memory) into a status, and writes exactly one record atomically.
 from __future__ import annotations
 
 import dataclasses
-import errno
 import faulthandler
 import os
 import pickle
@@ -24,10 +23,11 @@ from pathlib import Path
 import numpy as np
 
 from bench.config import ConfigError, build_params, positive
-from bench.records import SCHEMA_VERSION, config_hash, environment, read_record, record_path, write_record
+from bench.records import (SCHEMA_VERSION, config_hash, environment, problem_config_hash, problem_id, read_record,
+                           record_path, write_record)
 
 __all__ = ["Case", "Prepared", "BudgetConfig", "prepare", "execute", "run_case", "make_solver",
-           "MEASURES", "problem_id", "effective_threads", "launcher_share"]
+           "MEASURES", "problem_key", "effective_threads", "launcher_share"]
 
 POLL_INTERVAL = 0.02      # seconds between the parent's memory checks
 KILL_GRACE = 2.0          # seconds the harness adds to a case's time limit for evaluation
@@ -49,6 +49,34 @@ class BudgetConfig:
 
 
 @dataclasses.dataclass
+class TimingConfig:
+    """How deterministic methods are timed (conf/config.yaml, `timing`).
+
+    A warm-up run, then repeats until at least `repeats` runs and `min_time` seconds of measured
+    time, stopping early once `max_time` seconds are measured (slow cases stay affordable) or
+    `max_repeats` runs are done. A first run that alone takes `min_time` counts as a repeat
+    instead of a warm-up: cold-start effects are negligible at that scale. Methods whose run
+    records a training history, and non-deterministic ones, run once (the history is the
+    measurement). The record keeps every repeat; `timings.total` is the median run's.
+    """
+
+    warmup: int = 1
+    repeats: int = 5
+    min_time: float = 0.2
+    max_time: float = 3.0
+    max_repeats: int = 1000
+
+    def __post_init__(self):
+        if not isinstance(self.warmup, int) or self.warmup < 0:
+            raise ConfigError(f"`timing.warmup` must be a non-negative integer, got {self.warmup!r}")
+        positive("timing.repeats", self.repeats, integer=True, maximum=100000)
+        positive("timing.max_repeats", self.max_repeats, integer=True, maximum=100000)
+        if self.min_time < 0:
+            raise ConfigError(f"`timing.min_time` must be non-negative, got {self.min_time!r}")
+        positive("timing.max_time", self.max_time)
+
+
+@dataclasses.dataclass
 class Case:
     """One case: what to run (configs as plain mappings) and how."""
 
@@ -60,6 +88,7 @@ class Case:
     budget: dict = dataclasses.field(default_factory=dict)
     suite: str | None = None
     save_field: bool = False
+    timing: dict = dataclasses.field(default_factory=dict)   # TimingConfig fields; not part of identity
 
     def identity(self) -> dict:
         """What makes two cases the same measurement (hashed into the record's file name)."""
@@ -76,6 +105,7 @@ class Prepared:
     chash: str
     path: Path
     unsupported: str | None = None
+    timing: TimingConfig = dataclasses.field(default_factory=TimingConfig)
 
 
 def make_solver(cfg: dict):
@@ -91,10 +121,15 @@ def make_solver(cfg: dict):
     return cls(params={k: v for k, v in cfg.items() if k not in ("name", "_target_")})
 
 
-def problem_id(label: str, params: dict) -> str:
-    """``sine(k=4,l=4)``: the problem's label with its knobs, for grouping in reports."""
-    flat = ",".join(f"{k}={v}" for k, v in sorted(params.items()) if not isinstance(v, (dict, list)))
-    return f"{label}({flat})" if flat else label
+def problem_key(prep: "Prepared") -> str:
+    """The record's problem id: label, every knob and the domain (bench.records.problem_id)."""
+    from bench.problems import PROBLEMS
+
+    label = prep.case.problem_label or prep.problem.name
+    schema = PROBLEMS.get(prep.case.problem.get("name"), (None,))[0]
+    defaults = ({f.name: f.default for f in dataclasses.fields(schema) if f.default is not dataclasses.MISSING}
+                if dataclasses.is_dataclass(schema) else {})
+    return problem_id(label, prep.problem.params, prep.problem.domain.to_dict(), prep.case.problem, defaults)
 
 
 def prepare(case: Case, results_dir: str | Path = "results") -> Prepared:
@@ -113,11 +148,12 @@ def prepare(case: Case, results_dir: str | Path = "results") -> Prepared:
             f"`solver` {solver.name} with {solver.resolution()} needs about {_fmt_mb(est)} of memory, "
             f"above `budget.memory_limit_mb` = {budget.memory_limit_mb:g} MiB; lower the resolution "
             f"or raise the limit")
+    timing = build_params(TimingConfig, case.timing or {}, prefix="timing")
     ok, reason = solver.supports(problem)
     chash = config_hash(case.identity())
     label = case.problem_label or problem.name
     path = record_path(results_dir, label, solver.name, chash)
-    return Prepared(case, problem, solver, budget, chash, path, None if ok else (reason or "unsupported"))
+    return Prepared(case, problem, solver, budget, chash, path, None if ok else (reason or "unsupported"), timing)
 
 
 def _fmt_mb(mb: float) -> str:
@@ -246,23 +282,32 @@ def _rss_mb(pid: int) -> tuple[float, float]:
     return rss, hwm
 
 
+_POOLS: dict = {}
+
+
+def _thread_pools():
+    """threadpoolctl's controller of the BLAS/OpenMP pools loaded now, built once in the harness
+    parent (after the solver's preload) and inherited by every forked case: inspecting the
+    loaded libraries anew cost ~12 ms per case in the child."""
+    import sys as _sys
+
+    key = len(_sys.modules)       # a newly imported library (torch after a preload) may bring a pool
+    if _POOLS.get("key") != key:
+        from threadpoolctl import ThreadpoolController
+
+        _POOLS.update(key=key, controller=ThreadpoolController())
+    return _POOLS["controller"]
+
+
 # -- the child ------------------------------------------------------------------------------------
 def _in_child(prep: Prepared, threads: int) -> dict:
     """Run the solver and measure it; returns the child part of the record (never raises)."""
     import random
 
-    from threadpoolctl import threadpool_limits
-
     from bench.metrics import BadSolution, error_field
     from solvers.base import Diverged, RunContext, Solution, Unsupported
 
     out: dict = {"status": "ok", "reason": ""}
-    try:
-        with open("/proc/self/clear_refs", "w") as fh:  # reset the peak-RSS counter
-            fh.write("5")
-    except OSError:
-        pass
-    rss0, _ = _rss_mb(os.getpid())
     random.seed(prep.case.seed)
     np.random.seed(prep.case.seed % 2 ** 32)
     if "torch" in sys.modules:
@@ -273,19 +318,34 @@ def _in_child(prep: Prepared, threads: int) -> dict:
         torch.set_default_dtype(torch.float32)
     problem = prep.problem
     eval_set = problem.eval_set(seed=prep.case.seed)
-    progress = sys.stderr.isatty()
-    ctx = RunContext(seed=prep.case.seed, monitor=_monitor_fn(problem, eval_set), progress=progress,
+    monitor = _monitor_fn(problem, eval_set)
+    public = problem.public()
+    progress = sys.stderr.isatty() and os.environ.get("LAPBENCH_CASE_PROGRESS", "1") != "0"
+    ctx = RunContext(seed=prep.case.seed, monitor=monitor, progress=progress,
                      label=f"{prep.case.problem_label} {prep.solver.name}")
     import scipy.fft
 
-    solution = None
+    # the memory baseline is taken once the problem's own data (evaluation set, exact values)
+    # exist: the record's peak_rss_delta_mb is the solver's own memory
     try:
-        with threadpool_limits(limits=threads), scipy.fft.set_workers(threads):
-            result = prep.solver.solve(problem.public(), prep.budget, ctx)
+        with open("/proc/self/clear_refs", "w") as fh:  # reset the peak-RSS counter
+            fh.write("5")
+    except OSError:
+        pass
+    rss0, _ = _rss_mb(os.getpid())
+    hwm = None
+    solution = None
+    runs: list[dict] = []
+    try:
+        with _thread_pools().limit(limits=threads), scipy.fft.set_workers(threads):
+            result = prep.solver.solve(public, prep.budget, ctx)
             if not isinstance(result, Solution):  # plug-ins need not inherit Solver.solve's check
                 raise BadSolution(f"solver {prep.solver.name} returned {type(result).__name__}, "
                                   f"expected solvers.base.Solution")
             solution = result
+            if prep.solver.tags.deterministic and not ctx.history:
+                solution, runs = _repeat(prep, public, ctx, solution)
+            _, hwm = _rss_mb(os.getpid())
             t0 = time.perf_counter()
             out["metrics"] = _measure(problem, solution, eval_set)
             out["t_evaluate"] = time.perf_counter() - t0
@@ -305,16 +365,63 @@ def _in_child(prep: Prepared, threads: int) -> dict:
         where = f" at {Path(tb[-1].filename).name}:{tb[-1].lineno}" if tb else ""
         out.update(status="failed", reason=f"{type(exc).__name__}: {exc}{where}"[:2000])
     out["timings"] = dict(ctx.timings)
+    if runs:
+        out["timings"], out["timing"] = _timing_summary(runs)
     out["monitor_time"] = ctx.monitor_time
     out["history"] = ctx.history
     if solution is not None:
         out["info"] = _jsonable(solution.info)
         if solution.eigenvalues is not None:
             out["eigenvalues"] = [float(v) for v in np.asarray(solution.eigenvalues).ravel()]
-    _, hwm = _rss_mb(os.getpid())
+    if hwm is None:
+        _, hwm = _rss_mb(os.getpid())
     out["peak_rss_mb"] = hwm
     out["peak_rss_delta_mb"] = max(0.0, hwm - rss0)
     return out
+
+
+def _repeat(prep: Prepared, public, first_ctx, first):
+    """Warm-up and repeats of a deterministic solve (TimingConfig); (last solution, runs' phases)."""
+    from solvers.base import RunContext
+
+    cfg = prep.timing
+    start = time.perf_counter()
+    runs: list[dict] = []
+    first_time = sum(first_ctx.timings.values())
+    warm = cfg.warmup if first_time < cfg.min_time else 0
+    if warm == 0:
+        runs.append(dict(first_ctx.timings))
+    warm = max(0, warm - 1)          # the first run was one warm-up
+    solution = first
+    # repeats never take more than half the case's time limit (the first run is not counted)
+    allowance = 0.5 * prep.budget.time_limit
+    while len(runs) < cfg.max_repeats:
+        measured = sum(sum(r.values()) for r in runs)
+        if warm == 0 and measured >= cfg.max_time:
+            break
+        if warm == 0 and len(runs) >= cfg.repeats and measured >= cfg.min_time:
+            break
+        last = sum(runs[-1].values()) if runs else first_time
+        if time.perf_counter() - start + last > allowance:
+            break
+        ctx = RunContext(seed=prep.case.seed)
+        solution = prep.solver.solve(public, prep.budget, ctx)
+        if warm > 0:
+            warm -= 1
+        else:
+            runs.append(dict(ctx.timings))
+    if not runs:                      # no time for a repeat after the warm-up: the first run stands
+        runs.append(dict(first_ctx.timings))
+    return solution, runs
+
+
+def _timing_summary(runs: list[dict]) -> tuple[dict, dict]:
+    """(phases of the median run (upper median), the repeats: every total, min, median, max)."""
+    totals = [sum(r.values()) for r in runs]
+    order = sorted(range(len(runs)), key=lambda i: totals[i])
+    mid = order[len(order) // 2]
+    return dict(runs[mid]), {"repeats": totals, "min": min(totals), "median": totals[mid], "max": max(totals),
+                             "statistic": "median" if len(runs) > 1 else "single"}
 
 
 def _jsonable(info: dict) -> dict:
@@ -503,8 +610,10 @@ def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tu
     # before the clock starts, and cached under results_dir/cache: never on the solver's time
     ref_error = _ensure_reference(prep) if prep.unsupported is None else None
     # machine speed right before the case, same process and load: `lapbench check` divides by it
-    cal = ({"calibration_s": calibration.calibration_seconds(), "calibration_kernel": calibration.KERNEL}
-           if prep.unsupported is None else {})
+    cal = {}
+    if prep.unsupported is None:
+        cal_s, cal_age = calibration.calibration_seconds()
+        cal = {"calibration_s": cal_s, "calibration_age_s": round(cal_age, 3), "calibration_kernel": calibration.KERNEL}
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     load0 = os.getloadavg()[0] if hasattr(os, "getloadavg") else None
     busy0, own0 = _cpu_times()
@@ -514,6 +623,7 @@ def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tu
         child = {"status": "failed", "reason": ref_error, "wall": 0.0}
     else:
         type(prep.solver).preload()
+        _thread_pools()
         child = _fork_and_wait(prep, threads)
     busy1, own1 = _cpu_times()
     wall = child.get("wall", 0.0)
@@ -544,8 +654,8 @@ def _build_record(prep: Prepared, child: dict, threads: int, cores: int, started
         "config_hash": prep.chash,
         "created": started,
         "suite": case.suite,
-        "problem": {**problem.describe(), "label": label, "id": problem_id(label, problem.params),
-                    "config": case.problem},
+        "problem": {**problem.describe(), "label": label, "id": problem_key(prep),
+                    "config": case.problem, "config_hash": problem_config_hash(case.problem)},
         "solver": {"name": solver.name, "family": solver.family, "config": case.solver,
                    "resolution": resolution,
                    "resolution_label": ",".join(f"{k}={v}" for k, v in resolution.items()),
@@ -560,6 +670,8 @@ def _build_record(prep: Prepared, child: dict, threads: int, cores: int, started
         "reason": child.get("reason", ""),
         "metrics": child.get("metrics") or {},
         "timings": timings,
+        # deterministic methods: warm-up then repeats (TimingConfig); timings.total is the median run's
+        "timing": child.get("timing") or {"repeats": [total] if "total" in timings else [], "statistic": "single"},
         "cost": {"dofs": info.get("dofs"), "params": info.get("params"), "iterations": info.get("iterations"),
                  "h": info.get("h"), "peak_rss_mb": child.get("peak_rss_mb"),
                  "peak_rss_delta_mb": child.get("peak_rss_delta_mb")},

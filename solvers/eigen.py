@@ -118,13 +118,3 @@ def drift_accept(mu_coarse: np.ndarray, mu_fine: np.ndarray, tol: float) -> int:
     good = ok & (drift < tol)
     return int(np.argmin(good)) if not good.all() else m
 
-
-def __getattr__(name):
-    # TEMPORARY, the one arrow left from this module to a family: bench/eigen_problems.py
-    # (`_compute_reference`) still does `from solvers.eigen import fem_eigen`. Delete this function
-    # once that line reads `from solvers.fem import fem_eigen`.
-    if name == "fem_eigen":
-        from solvers.fem import fem_eigen
-
-        return fem_eigen
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -35,11 +35,17 @@ class TensorGrid:
         return m
 
     def boundary_grid(self, g) -> np.ndarray:
-        """Full grid that holds the Dirichlet data on the boundary and zero inside."""
-        U = np.zeros((self.n + 1, self.n + 1))
-        mask = self.boundary_mask()
-        pts = self.points[mask.ravel()]
-        U[mask] = g(pts)
+        """Full grid that holds the Dirichlet data on the boundary and zero inside (g is
+        evaluated at the 4 n boundary nodes only)."""
+        n = self.n
+        U = np.zeros((n + 1, n + 1))
+        x, y = self.x, self.y
+        pts = np.concatenate([
+            np.column_stack([np.full(n + 1, x[0]), y]), np.column_stack([np.full(n + 1, x[-1]), y]),
+            np.column_stack([x[1:-1], np.full(n - 1, y[0])]), np.column_stack([x[1:-1], np.full(n - 1, y[-1])])])
+        v = np.asarray(g(pts), dtype=float)
+        U[0, :], U[-1, :] = v[: n + 1], v[n + 1: 2 * n + 2]
+        U[1:-1, 0], U[1:-1, -1] = v[2 * n + 2: 3 * n + 1], v[3 * n + 1:]
         return U
 
 
@@ -66,15 +72,42 @@ def discrete_rhs(grid: TensorGrid, problem, compact: bool) -> np.ndarray:
     5-point: f at interior nodes. Compact 9-point (Mehrstellen): f + (hx^2 dxx f + hy^2 dyy f)/12,
     the correction that makes the scheme fourth order (Collatz; LeVeque 2007, sec. 3.5).
     """
-    F = problem.f_or_zero(grid.points).reshape(grid.n + 1, grid.n + 1)
-    rhs = F[1:-1, 1:-1].copy()
-    if compact and problem.f is not None:
-        # (hx^2 dxx f)/12 = (f_{i+1,j} - 2 f_ij + f_{i-1,j}) / 12: the h^2 cancels.
-        rhs += ((F[2:, 1:-1] - 2 * F[1:-1, 1:-1] + F[:-2, 1:-1])
-                + (F[1:-1, 2:] - 2 * F[1:-1, 1:-1] + F[1:-1, :-2])) / 12.0
+    m = grid.n - 1
+    if problem.f is None:
+        rhs = np.zeros((m, m))
+    elif compact:
+        # (hx^2 dxx f)/12 = (f_{i+1,j} - 2 f_ij + f_{i-1,j}) / 12: the h^2 cancels; in place:
+        # rhs = (2/3) f_ij + (f_{i+1,j} + f_{i-1,j} + f_{i,j+1} + f_{i,j-1}) / 12
+        F = problem.f_on_grid(grid.x, grid.y)
+        rhs = F[2:, 1:-1] + F[:-2, 1:-1]
+        rhs += F[1:-1, 2:]
+        rhs += F[1:-1, :-2]
+        rhs *= 1.0 / 12.0
+        rhs += (2.0 / 3.0) * F[1:-1, 1:-1]
+    else:
+        rhs = problem.f_on_grid(grid.x[1:-1], grid.y[1:-1])
+        if not rhs.flags.writeable:
+            rhs = rhs.copy()
     Ub = grid.boundary_grid(problem.g) if problem.g is not None else np.zeros((grid.n + 1,) * 2)
-    rhs -= apply_stencil(Ub, grid.hx, grid.hy, compact)
+    _fold_boundary(rhs, Ub, grid.hx, grid.hy, compact)
     return rhs, Ub
+
+
+def _fold_boundary(rhs: np.ndarray, Ub: np.ndarray, hx: float, hy: float, compact: bool) -> None:
+    """rhs -= stencil(Ub) where Ub is zero inside: only the interior nodes next to the boundary
+    see it, so the stencil is applied on the four 3-node-wide edge strips, not the whole grid."""
+    m = rhs.shape[0]
+    if m <= 2:
+        rhs -= apply_stencil(Ub, hx, hy, compact)
+        return
+    top = apply_stencil(Ub[:3, :], hx, hy, compact)[0]
+    bottom = apply_stencil(Ub[-3:, :], hx, hy, compact)[0]
+    left = apply_stencil(Ub[:, :3], hx, hy, compact)[:, 0]
+    right = apply_stencil(Ub[:, -3:], hx, hy, compact)[:, 0]
+    rhs[0, :] -= top
+    rhs[-1, :] -= bottom
+    rhs[1:-1, 0] -= left[1:-1]
+    rhs[1:-1, -1] -= right[1:-1]
 
 
 def interior_matrix(grid: TensorGrid, compact: bool) -> sps.csr_matrix:
