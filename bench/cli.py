@@ -178,7 +178,7 @@ def _words(text: str, width: int) -> str:
     if len(text) <= width:
         return text
     cut = text[: width - 1].rsplit(" ", 1)[0].rstrip(",;:")
-    return cut + "…"
+    return cut + "..."
 
 
 def cmd_list(argv: list[str]) -> int:
@@ -201,10 +201,12 @@ def cmd_list(argv: list[str]) -> int:
             if name == "none":
                 continue
             try:
-                s = OmegaConf.to_container(session.compose(sp + [f"suite={name}"]).suite, resolve=True)
-                from bench.suites import expand_suite
+                from bench.compose import locate_config_file
+                from bench.suites import describe_suite, expand_suite
 
-                suites[name] = (len(expand_suite(s)), s.get("description") or "")
+                cfg = session.compose(sp + [f"suite={name}"])
+                s = OmegaConf.to_container(cfg.suite, resolve=True)
+                suites[name] = (len(expand_suite(s)), describe_suite(locate_config_file(cfg, "suite")))
             except Exception as exc:  # noqa: BLE001
                 suites[name] = (None, f"(invalid: {exc})")
         problems = {}
@@ -223,13 +225,13 @@ def cmd_list(argv: list[str]) -> int:
                 solvers[name] = exc
     print("suites (conf/suite/<name>.yaml; lapbench run suite=<name>):")
     for name, (n, text) in suites.items():
-        print(f"  {name:<14} {'' if n is None else f'{n:>4} cases'}  {_words(text, 66)}")
+        print(f"  {name:<12} {'' if n is None else f'{n:>4} cases'}  {_words(text, 70)}")
     print("\nproblems (conf/problem/<name>.yaml):")
     for name, p in problems.items():
         if isinstance(p, Exception):
             print(f"  {name:<16} (invalid config: {p})")
         else:
-            print(f"  {name:<16} {p.kind:<8} {p.domain.kind:<10} {_words(p.source, 62)}")
+            print(f"  {name:<16} {p.kind:<8} {p.domain.kind:<10} {_words(p.source, 60)}")
     print("\nsolvers (conf/solver/<name>.yaml):")
     for name, s in solvers.items():
         if isinstance(s, Exception):
@@ -243,20 +245,23 @@ def cmd_list(argv: list[str]) -> int:
         print(f"  (registered without a config file: {', '.join(unregistered)})")
     names = [n for n, s in solvers.items() if not isinstance(s, Exception)]
     good = {n: p for n, p in problems.items() if not isinstance(p, Exception)}
-    print("\nsupported pairings (y = runs, . = unsupported), by domain kind:")
+    print("\nsupported pairings (y = runs, . = unsupported), by domain kind, classical then learned:")
+    from bench.report import LEARNED_FAMILIES
+
     for kind in sorted({p.domain.kind for p in good.values()}):
         rows = {n: p for n, p in good.items() if p.domain.kind == kind}
-        cols = [n for n in names if any(solvers[n].supports(p)[0] for p in rows.values())]
-        if not cols:
-            print(f"\n  {kind}: no solver")
-            continue
-        print(f"\n  {kind:<16}" + " ".join(cols))
-        for pname, p in rows.items():
-            cells = [("y" if solvers[n].supports(p)[0] else ".").center(len(n)) for n in cols]
-            print(f"  {pname:<16}" + " ".join(cells))
-        rest = [n for n in names if n not in cols]
+        for learned in (False, True):
+            cols = [n for n in names if (solvers[n].family in LEARNED_FAMILIES) == learned
+                    and any(solvers[n].supports(p)[0] for p in rows.values())]
+            if not cols:
+                continue
+            print(f"\n  {kind if not learned else '':<16}" + " ".join(cols))
+            for pname, p in rows.items():
+                cells = [("y" if solvers[n].supports(p)[0] else ".").center(len(n)) for n in cols]
+                print(f"  {pname:<16}" + " ".join(cells).rstrip())
+        rest = [n for n in names if not any(solvers[n].supports(p)[0] for p in rows.values())]
         if rest:
-            print(f"  {'':<16}(none of: {', '.join(rest)})")
+            print(f"  {'':<16}(no problem of this kind runs on: {', '.join(rest)})")
     return 0
 
 
@@ -353,6 +358,11 @@ def main(argv: list[str] | None = None) -> int:
         code = COMMANDS[cmd](rest)
     except ConfigError as exc:
         fail(str(exc))
+    except BrokenPipeError:        # `lapbench list | head`: the reader left; not an error of ours
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        code = 0
     sys.exit(code)
 
 

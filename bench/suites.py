@@ -5,7 +5,24 @@ import itertools
 
 from bench.config import ConfigError
 
-__all__ = ["expand_suite", "override_string"]
+__all__ = ["expand_suite", "override_string", "describe_suite"]
+
+
+def describe_suite(path) -> str:
+    """The first sentence of a suite file's leading comment ('' without one)."""
+    if path is None:
+        return ""
+    lines = []
+    try:
+        for line in open(path, encoding="utf-8"):
+            if not line.startswith("#"):
+                break
+            lines.append(line.lstrip("#").strip())
+    except OSError:
+        return ""
+    text = " ".join(x for x in lines if x)
+    end = text.find(". ")
+    return text[: end + 1] if end >= 0 else text
 
 
 def override_string(key: str, value) -> str:

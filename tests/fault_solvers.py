@@ -123,3 +123,42 @@ class SlowFD5(FD5):
 
 
 FAULTS = {cls.name: cls for cls in (FaultRaise, FaultHang, FaultAbort, FaultSegv, FaultMemory, FaultNaN)}
+
+
+@dataclasses.dataclass
+class CostParams:
+    n: int = 1              # CostSolver: milliseconds of busy work per solve (the known cost)
+    cold_ms: float = 0.0    # CostSolver: extra milliseconds of the first solve in a process
+    alloc_mb: int = 0       # CostSolver: MiB allocated and touched during the solve
+
+
+_COLD = {"done": False}
+
+
+class CostSolver(Solver):
+    """A deterministic test double with a known cost: `n` ms of busy-waiting per solve, an extra
+    `cold_ms` on the first solve of its process (a cold start, which the warm-up must absorb),
+    and `alloc_mb` MiB touched (a known memory peak). Its answer is the zero function."""
+
+    name = "cost"
+    family = "test"
+    description = "known cost (tests only)"
+    reference = "none: a test double"
+    Params = CostParams
+
+    def _solve(self, problem, budget, ctx):
+        from solvers.base import Solution
+
+        with ctx.phase("solve"):
+            wait = self.params.n / 1e3
+            if not _COLD["done"]:
+                wait += self.params.cold_ms / 1e3
+                _COLD["done"] = True
+            t0 = time.perf_counter()
+            while time.perf_counter() - t0 < wait:
+                pass
+            if self.params.alloc_mb:
+                block = np.ones(self.params.alloc_mb * 2 ** 20 // 8)   # np.ones touches every page
+                assert block[-1] == 1.0
+                del block
+        return Solution(evaluate=lambda p: np.zeros(len(p)), info={"dofs": 1})
