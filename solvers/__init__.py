@@ -5,7 +5,7 @@ from solvers.disk_spectral import DiskChebyshev
 from solvers.fd import FD5, FD9
 from solvers.fem import FEMP1, FEMP2
 from solvers.pinn import PINNFourier, PINNHard, PINNRar, PINNRitz, PINNSoft
-from solvers.pinn_eigen import PINNEigen
+from solvers.pinn.eigen import PINNEigen
 from solvers.spectral import Chebyshev
 
 # The one registry: name -> class. Later families add their entries here.

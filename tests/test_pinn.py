@@ -1,4 +1,5 @@
-"""PINN family (solvers/pinn/): derivatives, boundary treatment, accuracy, reproducibility, budgets.
+"""PINN family (solvers/pinn/): derivatives, boundary treatment, accuracy, reproducibility, budgets,
+the shared training driver.
 
 Every run here uses a tiny network (2 hidden layers of 16) and a few hundred steps, so that each
 test stays within a few seconds on one core. Accuracy thresholds were measured on the
@@ -329,3 +330,148 @@ def test_history_is_geometric_in_time(tmp_path):
     k = np.floor(np.log(tau / CHECKPOINT_FIRST) / np.log(CHECKPOINT_GROWTH))
     assert np.all(tau >= CHECKPOINT_FIRST) and np.all(np.diff(k) >= 1), (tau, k)
     assert hist[-1]["rel_l2"] == pytest.approx(rec["metrics"]["rel_l2"], rel=1e-9)
+
+
+# -- the training driver (solvers/pinn/train.py) on objectives with known minimisers ----------
+def _objective(fn, theta0):
+    """A `train.Objective` over one float64 parameter vector starting at `theta0`."""
+    from solvers.pinn.train import Objective
+
+    theta = torch.nn.Parameter(torch.tensor(theta0, dtype=torch.float64))
+    return Objective(lambda step: (fn(theta), {"norm": theta.detach().norm()}), [theta]), theta
+
+
+def test_driver_lbfgs_reaches_the_minimiser_of_a_quadratic():
+    """0.5 t'At - b't has its minimiser at A^-1 b (numpy.linalg.solve); L-BFGS from 0 reaches it
+    and stops by its own tolerance; every history entry carries the objective's logs and tags."""
+    from solvers.pinn.train import Schedule, train
+
+    rng = np.random.default_rng(0)
+    M = rng.standard_normal((6, 6))
+    A, b = M @ M.T + 6 * np.eye(6), rng.standard_normal(6)
+    At, bt = torch.as_tensor(A), torch.as_tensor(b)
+    obj, theta = _objective(lambda t: 0.5 * t @ At @ t - bt @ t, np.zeros(6))
+    ctx = RunContext(seed=0)
+    with ctx.phase("train"):
+        res = train(obj, Schedule(adam_steps=10, lbfgs_steps=200), 60.0, ctx, mode=3)
+    np.testing.assert_allclose(theta.detach().numpy(), np.linalg.solve(A, b), rtol=0, atol=1e-8)
+    assert res.stopped == "converged" and res.adam_steps == 10 and res.steps == 10 + res.lbfgs_iterations
+    assert all(h["mode"] == 3 and {"loss", "norm"} <= set(h) for h in ctx.history)
+    assert ctx.history[-1]["step"] == res.steps
+
+
+def test_driver_chunk_cut_by_its_evaluation_allowance_is_not_convergence(monkeypatch):
+    """With an allowance of 6 evaluations per L-BFGS chunk every chunk ends after a few
+    iterations; training must go on to the minimum (1, 1) of Rosenbrock's function (closed form)
+    instead of calling the first short chunk converged."""
+    import solvers.pinn.train as tr
+
+    monkeypatch.setattr(tr, "LBFGS_EVALS", 6)
+    obj, theta = _objective(lambda t: (1 - t[0]) ** 2 + 100 * (t[1] - t[0] ** 2) ** 2, [-1.2, 1.0])
+    ctx = RunContext(seed=0)
+    with ctx.phase("train"):
+        res = tr.train(obj, tr.Schedule(adam_steps=0, lbfgs_steps=500, patience=0), 60.0, ctx)
+    np.testing.assert_allclose(theta.detach().numpy(), [1.0, 1.0], atol=1e-6)
+    assert res.lbfgs_iterations > 6 and res.stopped == "converged"
+
+
+def test_driver_restarts_only_while_they_gain():
+    """At a stationary point L-BFGS stops at once; the first restart is tried (nothing to compare
+    with yet), the second would gain nothing and is not: one restart whatever the allowance."""
+    from solvers.pinn.train import Schedule, train
+
+    obj, theta = _objective(lambda t: (t * t).sum(), np.zeros(3))
+    ctx = RunContext(seed=0)
+    with ctx.phase("train"):
+        res = train(obj, Schedule(adam_steps=0, lbfgs_steps=100, lbfgs_restarts=10), 60.0, ctx)
+    assert res.lbfgs_restarts == 1 and res.stopped == "converged" and res.lbfgs_iterations == 0
+
+
+def test_driver_nan_is_diverged_with_step_and_tags():
+    from solvers.base import Diverged
+    from solvers.pinn.train import Schedule, train
+
+    obj, _ = _objective(lambda t: t.sum() / 0.0 * 0.0, np.ones(2))   # 0 * inf = NaN
+    ctx = RunContext(seed=0)
+    with ctx.phase("train"), pytest.raises(Diverged, match=r"loss became nan at step 4 \(mode 2, adam\)"):
+        train(obj, Schedule(adam_steps=5, lbfgs_steps=0), 60.0, ctx, step=4, mode=2)
+
+
+# -- the package's shape ------------------------------------------------------------------------
+def test_modules_import_downwards_only():
+    """No module of solvers/pinn imports solvers.pinn.solver (the presets sit on top), and the
+    imports between the family's modules form no circle (read from the source with ast)."""
+    import ast
+    import pathlib
+
+    import solvers.pinn
+
+    root = pathlib.Path(solvers.pinn.__file__).parent
+    graph = {}
+    for f in root.glob("*.py"):
+        deps = set()
+        for node in ast.walk(ast.parse(f.read_text())):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("solvers.pinn."):
+                deps.add(node.module.split(".")[2])
+            elif isinstance(node, ast.Import):
+                deps |= {a.name.split(".")[2] for a in node.names if a.name.startswith("solvers.pinn.")}
+        graph[f.stem] = deps
+    assert {m for m, deps in graph.items() if "solver" in deps} == {"__init__"}, graph
+    seen, done = set(), set()
+
+    def visit(m, path):
+        assert m not in seen - done, f"import circle: {' -> '.join(path + [m])}"
+        if m in done:
+            return
+        seen.add(m)
+        for d in graph.get(m, ()):
+            visit(d, path + [m])
+        done.add(m)
+
+    for m in graph:
+        visit(m, [])
+
+
+def test_every_option_name_has_an_implementation():
+    """The validated spellings (options.py) and the tables that implement them agree."""
+    from solvers.pinn.model import torch_dtype
+    from solvers.pinn.options import ACTIVATIONS, LAPLACIAN_METHODS, PRECISIONS, SAMPLINGS
+    from solvers.pinn.sampling import interior_points
+
+    gen = torch.Generator().manual_seed(0)
+    x = torch.rand(4, 2, dtype=torch.float64, generator=gen)
+    for a in ACTIVATIONS:
+        net = Network((0, 1, 0, 1), 4, 1, a, 0, 1.0, torch.float64, gen)
+        for m in LAPLACIAN_METHODS:
+            assert net.derivatives(x, 2, m)[2].shape == (4,)
+    assert [torch_dtype(p).itemsize for p in PRECISIONS] == [4, 8]
+    dom = make_problem({"name": "sine"}).domain
+    for s in SAMPLINGS:
+        assert interior_points(dom, 5, s, np.random.default_rng(0)).shape == (5, 2)
+
+
+# -- the neural eigen-solver on the shared driver (accuracy: tests/test_eigen.py) --------------
+def test_sequential_modes_share_one_step_counter_and_bound_from_above():
+    """Sequential, k = 2 on the unit square: each mode's history entries carry its `mode` tag, the
+    step counter runs on across modes and ends at `iterations`; the Ritz values lie above
+    2 pi^2 and 5 pi^2 (closed form; min-max principle, up to quadrature error ~1e-12 at this
+    level for these smooth functions). Measured relative errors, seeds 0-2: lambda_1 4.1e-5,
+    3.0e-5, 1.7e-5; lambda_2 3.0e-4, 5.9e-4, 6.0e-4; thresholds about three times the worst."""
+    p = make_problem({"name": "eigen_rect", "k": 2})
+    ctx = RunContext(seed=0)
+    sol = SOLVERS["pinn_eigen"](params={"strategy": "sequential", "width": 12, "depth": 2,
+                                        "train_level": 10, "adam_steps": 100, "lbfgs_steps": 40,
+                                        "quad_level": 24}).solve(p.public(), Budget(train_time=120), ctx)
+    info = sol.info
+    assert len(info["stopped"]) == 2
+    assert info["iterations"] == info["adam_steps"] + info["lbfgs_iterations"]
+    hist = ctx.history
+    modes = [h["mode"] for h in hist]
+    assert modes == sorted(modes) and set(modes) == {1, 2}
+    steps = [h["step"] for h in hist]
+    assert steps == sorted(steps) and steps[-1] == info["iterations"]
+    assert all({"loss", "rayleigh", "ortho"} <= set(h) for h in hist)
+    lam = np.asarray(sol.eigenvalues)
+    assert np.all(lam >= np.array([2, 5]) * math.pi ** 2 * (1 - 1e-9)), lam
+    rel = lam / (np.array([2, 5]) * math.pi ** 2) - 1
+    assert rel[0] < 1.5e-4 and rel[1] < 2e-3, rel

@@ -1,5 +1,7 @@
 """Physics-informed neural networks on the CPU (torch is imported only when a PINN runs)."""
+from solvers.pinn.eigen import PINNEigen
 from solvers.pinn.solver import (PINN, PRESETS, PINNFourier, PINNHard, PINNParams, PINNRar, PINNRitz,
                                  PINNSoft)
 
-__all__ = ["PINN", "PINNParams", "PRESETS", "PINNSoft", "PINNHard", "PINNRitz", "PINNFourier", "PINNRar"]
+__all__ = ["PINN", "PINNParams", "PRESETS", "PINNSoft", "PINNHard", "PINNRitz", "PINNFourier", "PINNRar",
+           "PINNEigen"]

@@ -10,6 +10,10 @@ boundary, so u = g there whatever the network N does; product rule
     grad u = grad g_ext + N grad phi + phi grad N,
     Lap u  = Lap g_ext + N Lap phi + 2 grad phi . grad N + phi Lap N,
 with g_ext, phi and their derivatives fixed per point (sampling.point_data).
+
+`Collocation` holds the current point sets; `PINNObjective` is the loss on them in the form the
+training driver (`solvers.pinn.train`) takes, with the point resampling and residual-based
+refinement between Adam steps.
 """
 from __future__ import annotations
 
@@ -18,11 +22,10 @@ import dataclasses
 import numpy as np
 import torch
 
-from solvers.pinn.sampling import PointData
-from solvers.pinn.solver import BOUNDARIES, LOSSES
+from solvers.pinn.options import BOUNDARIES, LOSSES
+from solvers.pinn.sampling import PointData, boundary_points, interior_points, point_data
 
-__all__ = ["Batch", "Boundary", "Loss", "LOSSES", "BOUNDARIES"]
-
+__all__ = ["Batch", "Boundary", "Collocation", "Loss", "PINNObjective", "LOSSES", "BOUNDARIES"]
 
 
 class Batch:
@@ -87,3 +90,76 @@ class Loss:
             return pde, {"loss_pde": pde, "loss_bc": None}
         bc = torch.mean((net(boundary.x) - boundary.g) ** 2)
         return pde + self.bc_weight * bc, {"loss_pde": pde, "loss_bc": bc}
+
+
+class Collocation:
+    """The current interior (and, for soft boundaries, boundary) points with their fixed data."""
+
+    def __init__(self, problem, n_interior: int, n_boundary: int, sampling: str, hard: bool,
+                 dtype: torch.dtype, rng: np.random.Generator):
+        self.problem, self.n_interior, self.n_boundary = problem, n_interior, n_boundary
+        self.sampling, self.hard, self.dtype, self.rng = sampling, hard, dtype, rng
+        self.added = None
+        self.resample()
+
+    def resample(self) -> None:
+        """Fresh interior (and boundary) points; points added by refinement are kept."""
+        x = interior_points(self.problem.domain, self.n_interior, self.sampling, self.rng)
+        self.base = point_data(self.problem, x, self.hard)
+        self._rebuild()
+        self.boundary = None
+        if not self.hard:
+            xb = boundary_points(self.problem.domain, self.n_boundary, self.rng)
+            # no data: homogeneous boundary condition
+            g = np.zeros(len(xb)) if self.problem.g is None else self.problem.g(xb)
+            self.boundary = Boundary(torch.as_tensor(xb, dtype=self.dtype),
+                                     torch.as_tensor(g, dtype=self.dtype))
+
+    def _rebuild(self) -> None:
+        data = self.base if self.added is None else self.base.concat(self.added)
+        self.batch = Batch(data, self.dtype)
+
+    def refine(self, net, loss: Loss, n_candidates: int, n_add: int) -> None:
+        """Residual-based adaptive refinement: add the `n_add` candidates of largest |residual|.
+
+        Lu, Meng, Mao & Karniadakis, "DeepXDE: a deep learning library for solving differential
+        equations", SIAM Review 63 (2021), section on RAR: uniform random candidates, the points
+        with the largest PDE residual join the training set.
+        """
+        x = interior_points(self.problem.domain, n_candidates, "uniform", self.rng)
+        cand = point_data(self.problem, x, self.hard)
+        r = loss.residual(net, Batch(cand, self.dtype)).abs().numpy()
+        top = np.argsort(-r, kind="stable")[:n_add]
+        pick = type(cand)(**{k: (None if v is None else v[top]) for k, v in vars(cand).items()})
+        self.added = pick if self.added is None else self.added.concat(pick)
+        self._rebuild()
+
+
+@dataclasses.dataclass
+class PINNObjective:
+    """The PINN loss on the current collocation set, as `solvers.pinn.train.train` takes it.
+
+    ``resample_every`` / ``rar_every``: fresh points, or a residual-based refinement adding
+    ``rar_add`` of ``rar_candidates`` points, every k Adam steps (0: never; none after the last).
+    """
+
+    net: torch.nn.Module
+    loss: Loss
+    colloc: Collocation
+    resample_every: int = 0
+    rar_every: int = 0
+    rar_candidates: int = 10000
+    rar_add: int = 100
+
+    @property
+    def params(self):
+        return list(self.net.parameters())
+
+    def __call__(self, step: int):
+        return self.loss(self.net, self.colloc.batch, self.colloc.boundary)
+
+    def after_adam_step(self, step: int, more: bool) -> None:
+        if self.resample_every and step % self.resample_every == 0 and more:
+            self.colloc.resample()
+        if self.rar_every and step % self.rar_every == 0 and more:
+            self.colloc.refine(self.net, self.loss, self.rar_candidates, self.rar_add)

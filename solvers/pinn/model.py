@@ -25,20 +25,20 @@ import warnings
 import torch
 from torch import nn
 
-from solvers.pinn.solver import ACTIVATIONS, LAPLACIAN_METHODS
+from solvers.pinn.options import ACTIVATIONS, LAPLACIAN_METHODS, PRECISIONS
 from solvers.pinn.streams import activate_first, activate_stacked
 
 __all__ = ["Network", "ACTIVATIONS", "LAPLACIAN_METHODS", "torch_dtype"]
 
+# the torch functions of the activations named in options.ACTIVATIONS (plain forward pass; the
+# derivative streams use solvers.pinn.streams)
+_ACTIVATION_FUNCTIONS = {"tanh": torch.tanh, "sin": torch.sin, "silu": nn.functional.silu}
+_DTYPES = {"float32": torch.float32, "float64": torch.float64}
 
 
 def torch_dtype(precision: str) -> torch.dtype:
     """``float32`` or ``float64`` as a torch dtype."""
-    return {"float32": torch.float32, "float64": torch.float64}[precision]
-
-
-def _activation(name: str):
-    return {"tanh": torch.tanh, "sin": torch.sin, "silu": nn.functional.silu}[name]
+    return _DTYPES[precision]
 
 
 class Network(nn.Module):
@@ -71,7 +71,7 @@ class Network(nn.Module):
         x0, x1, y0, y1 = (float(v) for v in bbox)
         self.dim = 2
         self.activation = activation
-        self._act = _activation(activation)
+        self._act = _ACTIVATION_FUNCTIONS[activation]
         self.register_buffer("center", torch.tensor([(x0 + x1) / 2, (y0 + y1) / 2], dtype=dtype))
         self.register_buffer("scale", torch.tensor([2.0 / (x1 - x0), 2.0 / (y1 - y0)], dtype=dtype))
         if fourier_features > 0:

@@ -9,32 +9,22 @@ import dataclasses
 
 import numpy as np
 
-from bench.config import ConfigError, in_range, one_of, positive
+from bench.config import ConfigError, one_of, positive
 from solvers.base import Solution, Solver, Tags
+from solvers.pinn.options import (ACTIVATIONS, BOUNDARIES, LAPLACIAN_METHODS, LOSSES, MAX_DEPTH,
+                                  MAX_POINTS, MAX_WIDTH, PRECISIONS, SAMPLINGS, check_schedule, count)
+from solvers.pinn.runtime import preload_torch, retain_freed_memory
 
 __all__ = ["PINN", "PINNParams", "PINNSoft", "PINNHard", "PINNRitz", "PINNFourier", "PINNRar",
-           "PRESETS"]
+           "PRESETS", "retain_freed_memory"]
 
-# Option spellings live here, in the torch-free module that validates configs.
-ACTIVATIONS = ("tanh", "sin", "silu")
-LAPLACIAN_METHODS = ("forward", "autograd", "func")
-LOSSES = ("residual", "ritz")
-BOUNDARIES = ("soft", "hard")
-SAMPLINGS = ("uniform", "sobol")
-PRECISIONS = ("float32", "float64")
-
-MAX_WIDTH = 4096
-MAX_DEPTH = 64
-MAX_POINTS = 10_000_000
 EVAL_CHUNK = 16384          # points per forward pass in evaluate(): bounds its memory
-
-
-def _count(name: str, value: int, maximum: int | None = None) -> None:
-    """A non-negative integer option (0 switches the feature off)."""
-    if isinstance(value, bool) or not isinstance(value, int) or value < 0:
-        raise ConfigError(f"`{name}` must be a non-negative integer, got {value!r}")
-    if maximum is not None and value > maximum:
-        raise ConfigError(f"`{name}` must be at most {maximum}, got {value!r}")
+# L-BFGS restarts with a fresh curvature history after an early stop (train.Schedule): none.
+# Measured (pinn_hard on sine, default options, seed 0): L-BFGS stops by its float32 change
+# tolerance after 174 iterations; 10 allowed restarts ran 4 (4 more iterations), the loss fell
+# from 4.8807e-6 to 4.8806e-6 and the relative L2 error stayed 1.451e-5; at the nightly step
+# budgets no chunk stops early.
+LBFGS_RESTARTS = 0
 
 
 @dataclasses.dataclass
@@ -73,30 +63,20 @@ class PINNParams:
         positive("width", self.width, integer=True, maximum=MAX_WIDTH)
         positive("depth", self.depth, integer=True, maximum=MAX_DEPTH)
         one_of("activation", self.activation, ACTIVATIONS)
-        _count("fourier_features", self.fourier_features, maximum=MAX_WIDTH)
+        count("fourier_features", self.fourier_features, maximum=MAX_WIDTH)
         positive("fourier_scale", self.fourier_scale)
         one_of("precision", self.precision, PRECISIONS)
         positive("n_interior", self.n_interior, integer=True, maximum=MAX_POINTS)
         positive("n_boundary", self.n_boundary, integer=True, maximum=MAX_POINTS)
         one_of("sampling", self.sampling, SAMPLINGS)
-        _count("resample_every", self.resample_every)
-        _count("rar_every", self.rar_every)
+        count("resample_every", self.resample_every)
+        count("rar_every", self.rar_every)
         positive("rar_candidates", self.rar_candidates, integer=True, maximum=MAX_POINTS)
         positive("rar_add", self.rar_add, integer=True, maximum=MAX_POINTS)
         if self.rar_add > self.rar_candidates:
             raise ConfigError(f"`rar_add` must not exceed `rar_candidates` ({self.rar_candidates}), "
                               f"got {self.rar_add}")
-        _count("adam_steps", self.adam_steps)
-        positive("lr", self.lr)
-        if not (0 < self.lr_decay <= 1):
-            raise ConfigError(f"`lr_decay` must lie in (0, 1], got {self.lr_decay!r}")
-        _count("lbfgs_steps", self.lbfgs_steps)
-        if self.adam_steps + self.lbfgs_steps == 0:
-            raise ConfigError("`adam_steps` and `lbfgs_steps` must not both be 0 (nothing to train)")
-        positive("lbfgs_history", self.lbfgs_history, integer=True, maximum=10_000)
-        _count("patience", self.patience)
-        if not (self.plateau_tol >= 0):
-            raise ConfigError(f"`plateau_tol` must be non-negative, got {self.plateau_tol!r}")
+        check_schedule(self)
         one_of("laplacian", self.laplacian, LAPLACIAN_METHODS)
 
 
@@ -128,29 +108,8 @@ class PINN(Solver):
 
     @classmethod
     def preload(cls) -> None:
-        """Import torch (about 3 s) and warm the optimisers up in the harness parent.
-
-        The first ``Adam.step()`` of a process lazily imports torch's compiler machinery (about
-        4 s on the 2-core development machine); paid here once, it is not charged to every
-        forked case's training time.
-        """
-        import torch
-
-        import scipy.stats.qmc  # noqa: F401  (Sobol points; a slow first import)
-
-        import solvers.pinn.train  # noqa: F401
-
-        if getattr(cls, "_warm", False):
-            return
-        import warnings
-
-        w = torch.nn.Parameter(torch.zeros(2))
-        opt = torch.optim.Adam([w], lr=1e-3)
-        (w * w).sum().backward()
-        with warnings.catch_warnings():   # torch's own lazy imports warn about its internals
-            warnings.simplefilter("ignore", DeprecationWarning)
-            opt.step()
-        PINN._warm = True
+        """Import torch and take one Adam step in the harness parent (`runtime.preload_torch`)."""
+        preload_torch()
 
     def resolution(self) -> dict:
         p = self.params
@@ -170,9 +129,9 @@ class PINN(Solver):
     def _solve(self, problem, budget, ctx):
         import torch
 
-        from solvers.pinn.losses import Loss
+        from solvers.pinn.losses import Collocation, Loss, PINNObjective
         from solvers.pinn.model import Network, torch_dtype
-        from solvers.pinn.train import Collocation, Schedule, train
+        from solvers.pinn.train import Schedule, train
 
         self.preload()   # once per process, outside the timed phases (the harness did it already)
         retain_freed_memory()
@@ -188,37 +147,16 @@ class PINN(Solver):
             colloc = Collocation(problem, p.n_interior, p.n_boundary, p.sampling, hard, dtype, rng)
             loss = Loss(kind=p.loss, hard=hard, bc_weight=p.bc_weight, laplacian=p.laplacian,
                         area=float(problem.domain.area))
+            objective = PINNObjective(net, loss, colloc, p.resample_every, p.rar_every,
+                                      p.rar_candidates, p.rar_add)
             evaluate = _Evaluator(net, problem, hard, dtype)
-            sched = Schedule(**{f.name: getattr(p, f.name) for f in dataclasses.fields(Schedule)})
+            sched = Schedule.of(p, lbfgs_restarts=LBFGS_RESTARTS)
         with ctx.phase("train"):
-            result = train(net, loss, colloc, sched, budget, ctx, evaluate)
+            result = train(objective, sched, budget.train_cap, ctx, evaluate)
         info = {"params": net.n_parameters, "iterations": result.steps, "dofs": None,
-                **dataclasses.asdict(result), "laplacian": p.laplacian, "precision": p.precision}
+                **dataclasses.asdict(result), "n_interior": len(colloc.batch),
+                "laplacian": p.laplacian, "precision": p.precision}
         return Solution(evaluate=evaluate, nodes=None, values=None, info=info)
-
-
-def retain_freed_memory() -> bool:
-    """Let glibc keep freed blocks below 256 MiB in the heap instead of returning them.
-
-    A training step allocates and frees tensors of 0.5-4 MB each (above glibc's default mmap
-    threshold), so by default many steps map fresh pages that the kernel zero-fills on first
-    touch. Measured on the development machine, 4 x 50 network: 400-1 300 minor page faults per
-    step on 2 500 points by default, a handful with this setting; 600 Adam steps of `pinn_hard`
-    on 2 000 points took 9.2-9.8 s against 10.2-10.5 s (two runs each, alternating; timings on
-    this machine vary by 10-20 % between runs). It is a process-wide setting, made in the forked
-    case process; freed blocks are reused rather than returned, so the peak does not grow.
-    Returns False where mallopt is unavailable (not glibc).
-    """
-    import ctypes
-    import ctypes.util
-
-    try:
-        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
-        mallopt = libc.mallopt
-    except (OSError, AttributeError):
-        return False
-    m_trim_threshold, m_mmap_threshold = -1, -3          # <malloc.h>
-    return bool(mallopt(m_mmap_threshold, 256 << 20)) and bool(mallopt(m_trim_threshold, 1 << 30))
 
 
 class _Evaluator:
