@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import sys
 from pathlib import Path
+from typing import NoReturn
 
 from bench.compose import Args, Session, case_from_cfg, conf_dir, plan_run, strip_overrides
 from bench.config import ConfigError, build_params
@@ -59,7 +60,7 @@ Options and their defaults: conf/report/default.yaml.
 """
 
 
-def fail(msg: str) -> "NoReturn":  # noqa: F821
+def fail(msg: str) -> NoReturn:
     print(f"lapbench: error: {msg}", file=sys.stderr)
     raise SystemExit(EXIT_USAGE)
 
@@ -321,7 +322,7 @@ def _run_first(plan) -> None:
 
 
 def cmd_conform(argv: list[str]) -> int:
-    from bench.plugins import conform
+    from bench.conformance import conform
 
     return conform(argv)
 

@@ -12,24 +12,13 @@ import dataclasses
 import re
 from pathlib import Path
 
-from bench.config import ConfigError, build_params, positive
+from bench.config import ConfigError, build_params, conf_dir, positive
 
 __all__ = ["Args", "Session", "conf_dir", "case_from_cfg", "plan_run", "strip_overrides",
            "replace_mapping_overrides", "annotate_config_error", "locate_config_file", "INTERNAL_KEYS"]
 
 # root keys lapbench sets itself; never offered as "known fields" to a user
 INTERNAL_KEYS = ("hydra", "case_index")
-
-
-def conf_dir() -> Path:
-    """The Hydra tree: conf/ beside the source checkout, or bench/conf inside an installed wheel."""
-    here = Path(__file__).resolve().parent
-    for cand in (here.parent / "conf", here / "conf"):
-        if (cand / "config.yaml").is_file():
-            return cand
-    import importlib.resources
-
-    return Path(str(importlib.resources.files("bench.conf")))
 
 
 class Args:

@@ -2,11 +2,15 @@
 from __future__ import annotations
 
 import dataclasses
+import importlib
+import re
 import types
 import typing
+from pathlib import Path
 from typing import Any, Literal, get_args, get_origin
 
-__all__ = ["ConfigError", "build_params", "positive", "in_range", "one_of", "describe_fields"]
+__all__ = ["ConfigError", "build_params", "positive", "in_range", "one_of", "describe_fields", "import_object",
+           "conf_dir"]
 
 
 class ConfigError(ValueError):
@@ -153,3 +157,64 @@ def describe_fields(schema) -> str:
         else:
             parts.append(f"{f.name}=<required>")
     return ", ".join(parts)
+
+
+def import_object(target: str, field: str = "solver._target_"):
+    """The object at ``package.module.Attr`` (or ``package.module:Attr``); ConfigError naming `field`."""
+    if not isinstance(target, str) or not target.strip():
+        raise ConfigError(f"`{field}` must be an import path such as 'mypackage.module.MySolver', "
+                          f"got {target!r}")
+    target = target.strip()
+    if not re.fullmatch(r"[A-Za-z_][\w]*(\.[A-Za-z_][\w]*)*(:[A-Za-z_][\w]*(\.[A-Za-z_][\w]*)*)?", target):
+        raise ConfigError(f"`{field}` must be a dotted import path such as 'mypackage.module.MySolver', "
+                          f"got {target!r}")
+    if ":" in target:
+        module_name, attr_path = target.split(":", 1)
+        candidates = [(module_name, attr_path.split("."))]
+    else:
+        parts = target.split(".")
+        if len(parts) < 2:
+            raise ConfigError(f"`{field}` {target!r} names no class: write 'module.ClassName'")
+        candidates = [(".".join(parts[:i]), parts[i:]) for i in range(len(parts) - 1, 0, -1)]
+    first_missing = None
+    for module_name, attrs in candidates:
+        try:
+            module = importlib.import_module(module_name)
+        except ModuleNotFoundError as exc:
+            # Only "this very module does not exist" lets us try a shorter prefix; a missing
+            # dependency inside an existing module is the user's real error.
+            if exc.name is not None and (module_name == exc.name or module_name.startswith(exc.name + ".")):
+                first_missing = first_missing or exc
+                continue
+            raise ConfigError(f"`{field}` cannot import {target!r}: importing module {module_name!r} "
+                              f"failed with ModuleNotFoundError: {exc}") from None
+        except Exception as exc:  # noqa: BLE001  (any error raised by the plug-in's own module)
+            raise ConfigError(f"`{field}` cannot import {target!r}: importing module {module_name!r} "
+                              f"failed with {type(exc).__name__}: {_one_line(exc)}") from None
+        obj = module
+        for i, attr in enumerate(attrs):
+            try:
+                obj = getattr(obj, attr)
+            except AttributeError:
+                where = ".".join([module_name] + attrs[:i])
+                raise ConfigError(f"`{field}` cannot import {target!r}: {where!r} has no attribute "
+                                  f"{attr!r}") from None
+        return obj
+    raise ConfigError(f"`{field}` cannot import {target!r}: ModuleNotFoundError: {first_missing} "
+                      f"(is the plug-in's package installed or on PYTHONPATH?)")
+
+
+def _one_line(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()
+    return text[0][:300] if text else ""
+
+
+def conf_dir() -> Path:
+    """The Hydra tree: conf/ beside the source checkout, or bench/conf inside an installed wheel."""
+    here = Path(__file__).resolve().parent
+    for cand in (here.parent / "conf", here / "conf"):
+        if (cand / "config.yaml").is_file():
+            return cand
+    import importlib.resources
+
+    return Path(str(importlib.resources.files("bench.conf")))

@@ -14,6 +14,8 @@ from typing import Callable
 
 import numpy as np
 
+from bench.config import ConfigError
+
 __all__ = ["CheckFailure", "NotApplicable", "CHECKS", "run_checks", "candidate_problems",
            "seed_everything"]
 
@@ -42,7 +44,7 @@ def seed_everything(seed: int) -> None:
 
 
 def _conf_problem_dir() -> Path:
-    from bench.compose import conf_dir
+    from bench.config import conf_dir
 
     return conf_dir() / "problem"
 
@@ -275,3 +277,94 @@ def run_checks(make: Callable, checks=None) -> list[tuple[str, str, str]]:
         except Exception as exc:  # noqa: BLE001  (a crash inside a check is a failure with its reason)
             rows.append((name, "FAIL", f"{type(exc).__name__}: {exc}"[:300]))
     return rows
+
+
+# ------------------------------------------------------------------------------------------------
+# `lapbench conform`: the conformance suite against a user's solver config
+# ------------------------------------------------------------------------------------------------
+CONFORM_USAGE = """usage: lapbench conform [--config-dir DIR] solver=<name> [solver.<option>=<value> ...]
+
+Runs the solver conformance checks (bench/conformance.py, the same checks every built-in
+solver passes in tests/test_conformance.py) against the solver that `solver=<name>` selects,
+typically a plug-in whose conf/solver/<name>.yaml lives in DIR. Each check runs in its own
+process; small options (e.g. solver.n=16) keep it quick.
+
+exit codes: 0 every applicable check passes, 1 some check fails, 2 bad config or plug-in
+"""
+# A check solves at most a few times, each with the suite's per-solve budget.
+CHECK_TIMEOUT = 600.0
+
+
+def _run_check_isolated(name: str, make, timeout: float) -> tuple[str, str, str]:
+    """One conformance check in a forked child (bench.isolate): a crash or a hang fails the check,
+    not the command."""
+    from bench.isolate import run_isolated
+
+    def check():
+        from threadpoolctl import threadpool_limits
+
+        with threadpool_limits(limits=1):   # shared machines: one thread, like a default case
+            return tuple(str(v) for v in run_checks(make, [name])[0])
+
+    out = run_isolated(check, timeout, limit_text=f"{timeout:g} s")
+    if out.status == "timeout":
+        return name, "FAIL", f"did not finish within {timeout:g} s (killed)"
+    if out.status is not None:
+        return name, "FAIL", out.reason.replace("case process", "the check's process")
+    return out.result
+
+
+def format_conformance(rows) -> str:
+    """The pass/fail table: one line per check with its reason."""
+    w = max([len(r[0]) for r in rows] + [5])
+    lines = [f"{'check':<{w}}  result  reason", f"{'-' * w}  ------  ------"]
+    lines += [f"{c:<{w}}  {res:<6}  {why}".rstrip() for c, res, why in rows]
+    return "\n".join(lines)
+
+
+def conform(argv: list[str]) -> int:
+    """`lapbench conform`: run the conformance checks against one solver config; exit 0, 1 or 2."""
+    import sys
+
+    from omegaconf import OmegaConf
+
+    from bench.compose import Args, Session, annotate_config_error, locate_config_file
+    from bench.run import make_solver
+
+    args = Args(argv)
+    if args.help:
+        print(CONFORM_USAGE)
+        return 0
+    if args.multirun:
+        raise ConfigError("`--multirun` does not apply to conform: check one solver config at a time")
+    if not any(o.split("=", 1)[0] == "solver" for o in args.overrides):
+        raise ConfigError("`solver` is required: lapbench conform [--config-dir DIR] solver=<name>")
+    cfg = None
+    with Session(args) as session:
+        try:
+            cfg = session.compose(args.searchpath_overrides() + args.overrides)
+            scfg = OmegaConf.to_container(cfg.solver, resolve=True)
+            solver = make_solver(scfg)
+        except ConfigError as exc:
+            raise annotate_config_error(exc, cfg, args.overrides) from None
+    where = locate_config_file(cfg, "solver")
+    origin = scfg.get("_target_") or f"built-in {type(solver).__module__}.{type(solver).__name__}"
+    print(f"conformance of solver {solver.name!r} ({origin}{f', {where}' if where else ''}), "
+          f"options {solver.resolution() or scfg}")
+    type(solver).preload()
+    _problems()  # build the catalogue once, before the checks fork
+
+    def make():
+        return make_solver(scfg)
+
+    rows = []
+    for name in CHECKS:
+        rows.append(_run_check_isolated(name, make, CHECK_TIMEOUT))
+        if sys.stderr.isatty():  # progress for people; quiet in logs and tests
+            print(f"  {name}: {rows[-1][1]}", file=sys.stderr, flush=True)
+    print(format_conformance(rows))
+    failed = [r for r in rows if r[1] == "FAIL"]
+    n_na = sum(r[1] == "n/a" for r in rows)
+    print(f"{len(rows)} checks: {len(rows) - len(failed) - n_na} passed, {n_na} not applicable, "
+          f"{len(failed)} failed")
+    return 1 if failed else 0

@@ -15,11 +15,10 @@ from __future__ import annotations
 
 import dataclasses
 import importlib
-import re
 from functools import lru_cache
 from pathlib import Path
 
-from bench.config import ConfigError
+from bench.config import ConfigError, _one_line, import_object
 
 __all__ = ["import_object", "load_plugin_class", "check_contract", "make_plugin_solver", "provenance",
            "CONTRACT_ATTRIBUTES", "CONTRACT_METHODS"]
@@ -29,56 +28,6 @@ FIELD = "solver._target_"
 CONTRACT_ATTRIBUTES = ("name", "family", "description", "Params", "tags")
 # Public methods the harness calls; a `Solver` subclass inherits all of them and adds `_solve`.
 CONTRACT_METHODS = ("supports", "solve", "resolution", "preload")
-
-
-def import_object(target: str, field: str = FIELD):
-    """The object at ``package.module.Attr`` (or ``package.module:Attr``); ConfigError naming `field`."""
-    if not isinstance(target, str) or not target.strip():
-        raise ConfigError(f"`{field}` must be an import path such as 'mypackage.module.MySolver', "
-                          f"got {target!r}")
-    target = target.strip()
-    if not re.fullmatch(r"[A-Za-z_][\w]*(\.[A-Za-z_][\w]*)*(:[A-Za-z_][\w]*(\.[A-Za-z_][\w]*)*)?", target):
-        raise ConfigError(f"`{field}` must be a dotted import path such as 'mypackage.module.MySolver', "
-                          f"got {target!r}")
-    if ":" in target:
-        module_name, attr_path = target.split(":", 1)
-        candidates = [(module_name, attr_path.split("."))]
-    else:
-        parts = target.split(".")
-        if len(parts) < 2:
-            raise ConfigError(f"`{field}` {target!r} names no class: write 'module.ClassName'")
-        candidates = [(".".join(parts[:i]), parts[i:]) for i in range(len(parts) - 1, 0, -1)]
-    first_missing = None
-    for module_name, attrs in candidates:
-        try:
-            module = importlib.import_module(module_name)
-        except ModuleNotFoundError as exc:
-            # Only "this very module does not exist" lets us try a shorter prefix; a missing
-            # dependency inside an existing module is the user's real error.
-            if exc.name is not None and (module_name == exc.name or module_name.startswith(exc.name + ".")):
-                first_missing = first_missing or exc
-                continue
-            raise ConfigError(f"`{field}` cannot import {target!r}: importing module {module_name!r} "
-                              f"failed with ModuleNotFoundError: {exc}") from None
-        except Exception as exc:  # noqa: BLE001  (any error raised by the plug-in's own module)
-            raise ConfigError(f"`{field}` cannot import {target!r}: importing module {module_name!r} "
-                              f"failed with {type(exc).__name__}: {_one_line(exc)}") from None
-        obj = module
-        for i, attr in enumerate(attrs):
-            try:
-                obj = getattr(obj, attr)
-            except AttributeError:
-                where = ".".join([module_name] + attrs[:i])
-                raise ConfigError(f"`{field}` cannot import {target!r}: {where!r} has no attribute "
-                                  f"{attr!r}") from None
-        return obj
-    raise ConfigError(f"`{field}` cannot import {target!r}: ModuleNotFoundError: {first_missing} "
-                      f"(is the plug-in's package installed or on PYTHONPATH?)")
-
-
-def _one_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return text[0][:300] if text else ""
 
 
 def check_contract(cls) -> list[str]:
@@ -215,135 +164,3 @@ def make_plugin_solver(cfg: dict):
 # ------------------------------------------------------------------------------------------------
 # Naming the config file behind a bad field
 # ------------------------------------------------------------------------------------------------
-# ------------------------------------------------------------------------------------------------
-# `lapbench conform`: the conformance suite against a user's solver config
-# ------------------------------------------------------------------------------------------------
-CONFORM_USAGE = """usage: lapbench conform [--config-dir DIR] solver=<name> [solver.<option>=<value> ...]
-
-Runs the solver conformance checks (bench/conformance.py, the same checks every built-in
-solver passes in tests/test_conformance.py) against the solver that `solver=<name>` selects,
-typically a plug-in whose conf/solver/<name>.yaml lives in DIR. Each check runs in its own
-process; small options (e.g. solver.n=16) keep it quick.
-
-exit codes: 0 every applicable check passes, 1 some check fails, 2 bad config or plug-in
-"""
-# A check solves at most a few times, each with the suite's per-solve budget.
-CHECK_TIMEOUT = 600.0
-
-
-def _run_check_isolated(name: str, make, timeout: float) -> tuple[str, str, str]:
-    """One conformance check in a forked child: a crash or a hang fails the check, not the command."""
-    import os
-    import pickle
-    import select
-    import signal
-    import sys
-    import time
-
-    from bench import conformance
-
-    rfd, wfd = os.pipe()
-    sys.stdout.flush()
-    sys.stderr.flush()
-    pid = os.fork()
-    if pid == 0:  # child
-        code = 0
-        try:
-            os.close(rfd)
-            from threadpoolctl import threadpool_limits
-
-            with threadpool_limits(limits=1):   # shared machines: one thread, like a default case
-                row = conformance.run_checks(make, [name])[0]
-            data = pickle.dumps(tuple(str(v) for v in row))
-            view = memoryview(data)
-            while view:
-                view = view[os.write(wfd, view):]
-        except BaseException:  # noqa: BLE001
-            code = 70
-        finally:
-            os._exit(code)
-    os.close(wfd)
-    chunks, t0, timed_out = [], time.monotonic(), False
-    try:
-        while True:
-            left = timeout - (time.monotonic() - t0)
-            if left <= 0:
-                timed_out = True
-                os.kill(pid, signal.SIGKILL)
-                break
-            ready, _, _ = select.select([rfd], [], [], min(left, 1.0))
-            if ready:
-                data = os.read(rfd, 1 << 16)
-                if not data:
-                    break
-                chunks.append(data)
-    finally:
-        os.close(rfd)
-        _, status = os.waitpid(pid, 0)
-    if timed_out:
-        return name, "FAIL", f"did not finish within {timeout:g} s (killed)"
-    if chunks:
-        try:
-            return pickle.loads(b"".join(chunks))
-        except Exception:  # noqa: BLE001  (truncated: the child died while writing)
-            pass
-    if os.WIFSIGNALED(status):
-        return name, "FAIL", f"the check's process was killed by signal {signal.Signals(os.WTERMSIG(status)).name}"
-    return name, "FAIL", f"the check's process exited with code {os.WEXITSTATUS(status)} without a result"
-
-
-def format_conformance(rows) -> str:
-    """The pass/fail table: one line per check with its reason."""
-    w = max([len(r[0]) for r in rows] + [5])
-    lines = [f"{'check':<{w}}  result  reason", f"{'-' * w}  ------  ------"]
-    lines += [f"{c:<{w}}  {res:<6}  {why}".rstrip() for c, res, why in rows]
-    return "\n".join(lines)
-
-
-def conform(argv: list[str]) -> int:
-    """`lapbench conform`: run the conformance checks against one solver config; exit 0, 1 or 2."""
-    import sys
-
-    from omegaconf import OmegaConf
-
-    from bench import conformance
-    from bench.compose import Args, Session, annotate_config_error, locate_config_file
-    from bench.run import make_solver
-
-    args = Args(argv)
-    if args.help:
-        print(CONFORM_USAGE)
-        return 0
-    if args.multirun:
-        raise ConfigError("`--multirun` does not apply to conform: check one solver config at a time")
-    if not any(o.split("=", 1)[0] == "solver" for o in args.overrides):
-        raise ConfigError("`solver` is required: lapbench conform [--config-dir DIR] solver=<name>")
-    cfg = None
-    with Session(args) as session:
-        try:
-            cfg = session.compose(args.searchpath_overrides() + args.overrides)
-            scfg = OmegaConf.to_container(cfg.solver, resolve=True)
-            solver = make_solver(scfg)
-        except ConfigError as exc:
-            raise annotate_config_error(exc, cfg, args.overrides) from None
-    where = locate_config_file(cfg, "solver")
-    origin = scfg.get("_target_") or f"built-in {type(solver).__module__}.{type(solver).__name__}"
-    print(f"conformance of solver {solver.name!r} ({origin}{f', {where}' if where else ''}), "
-          f"options {solver.resolution() or scfg}")
-    type(solver).preload()
-    conformance._problems()  # build the catalogue once, before the checks fork
-
-    def make():
-        return make_solver(scfg)
-
-    rows = []
-    for name in conformance.CHECKS:
-        rows.append(_run_check_isolated(name, make, CHECK_TIMEOUT))
-        if sys.stderr.isatty():  # progress for people; quiet in logs and tests
-            print(f"  {name}: {rows[-1][1]}", file=sys.stderr, flush=True)
-    print(format_conformance(rows))
-    failed = [r for r in rows if r[1] == "FAIL"]
-    n_na = sum(r[1] == "n/a" for r in rows)
-    print(f"{len(rows)} checks: {len(rows) - len(failed) - n_na} passed, {n_na} not applicable, "
-          f"{len(failed)} failed")
-    return 1 if failed else 0

@@ -8,13 +8,8 @@ memory) into a status, and writes exactly one record atomically.
 from __future__ import annotations
 
 import dataclasses
-import faulthandler
 import os
-import pickle
-import select
-import signal
 import sys
-import tempfile
 import time
 import traceback
 from datetime import datetime, timezone
@@ -23,13 +18,13 @@ from pathlib import Path
 import numpy as np
 
 from bench.config import ConfigError, build_params, positive
+from bench.isolate import cpu_times, rss_mb, run_isolated
 from bench.records import (SCHEMA_VERSION, config_hash, environment, problem_config_hash, problem_id, read_record,
                            record_path, write_record)
 
 __all__ = ["Case", "Prepared", "BudgetConfig", "prepare", "execute", "run_case", "make_solver",
-           "MEASURES", "problem_key", "effective_threads", "launcher_share"]
+           "problem_key", "effective_threads", "launcher_share"]
 
-POLL_INTERVAL = 0.02      # seconds between the parent's memory checks
 KILL_GRACE = 2.0          # seconds the harness adds to a case's time limit for evaluation
 
 
@@ -163,43 +158,6 @@ def _fmt_mb(mb: float) -> str:
     return f"{mb:.0f} MiB"
 
 
-# -- measurement dispatch: problem kind -> function(problem, solution, eval_set) -> metrics dict
-def _solution_metrics(problem, solution, eval_set):
-    from bench.metrics import solution_errors
-
-    return solution_errors(problem, solution, eval_set)
-
-
-MEASURES = {"laplace": _solution_metrics, "poisson": _solution_metrics}
-
-
-def _measure(problem, solution, eval_set) -> dict:
-    if problem.kind not in MEASURES:
-        from bench import eigen_metrics  # noqa: F401  (registers the eigen measure on import)
-    return MEASURES[problem.kind](problem, solution, eval_set)
-
-
-def _monitor_fn(problem, eval_set):
-    """Training-history errors: relative L2 and max abs of an interpolant (harness side)."""
-    from bench.metrics import BadSolution, checked_values
-
-    pts, w = eval_set.points, eval_set.weights
-    u = problem.exact(pts) if problem.exact is not None else None
-    norm = float(np.sqrt(np.sum(w * u * u))) if u is not None else 0.0
-
-    def monitor(evaluate):
-        if u is None:
-            return {}
-        try:
-            e = checked_values(evaluate, pts) - u
-        except BadSolution:
-            return {"rel_l2": float("nan"), "max_abs": float("nan")}
-        num = float(np.sqrt(np.sum(w * e * e)))
-        return {"rel_l2": num / norm if norm > 0 else num, "max_abs": float(np.max(np.abs(e)))}
-
-    return monitor
-
-
 # -- thread pinning and machine load -------------------------------------------------------------
 def effective_threads(requested: int, share: int | None = None) -> tuple[int, int]:
     """(threads to use, cores this case may use): parallel workers split the cores.
@@ -241,45 +199,14 @@ def launcher_share(launcher: dict | None, cores: int | None = None) -> int | Non
     return None
 
 
-def _cpu_times() -> tuple[float, float]:
-    """(system-wide busy CPU seconds, this process tree's CPU seconds)."""
-    busy = 0.0
-    try:
-        with open("/proc/stat") as fh:
-            parts = fh.readline().split()[1:]
-        vals = [float(v) for v in parts]
-        tick = os.sysconf("SC_CLK_TCK")
-        busy = (sum(vals[:3]) + sum(vals[5:8])) / tick  # user nice system irq softirq steal
-    except (OSError, ValueError, IndexError):
-        pass
-    t = os.times()
-    return busy, t.user + t.system + t.children_user + t.children_system
-
-
-def _set_pdeathsig():
-    """Let the child die with the harness (a killed driver leaves no orphaned case running)."""
+def _trim_heap() -> None:
+    """glibc's malloc_trim(0): return free heap memory to the system (no-op elsewhere)."""
     try:
         import ctypes
 
-        libc = ctypes.CDLL("libc.so.6", use_errno=True)
-        libc.prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
-    except OSError:
+        ctypes.CDLL("libc.so.6").malloc_trim(0)
+    except (OSError, AttributeError):
         pass
-
-
-def _rss_mb(pid: int) -> tuple[float, float]:
-    """(VmRSS, VmHWM) of a process in MiB, from /proc."""
-    rss = hwm = 0.0
-    try:
-        with open(f"/proc/{pid}/status") as fh:
-            for line in fh:
-                if line.startswith("VmRSS:"):
-                    rss = float(line.split()[1]) / 1024
-                elif line.startswith("VmHWM:"):
-                    hwm = float(line.split()[1]) / 1024
-    except OSError:
-        pass
-    return rss, hwm
 
 
 _POOLS: dict = {}
@@ -304,7 +231,7 @@ def _in_child(prep: Prepared, threads: int) -> dict:
     """Run the solver and measure it; returns the child part of the record (never raises)."""
     import random
 
-    from bench.metrics import BadSolution, error_field
+    from bench.metrics import BadSolution, error_field, measure, monitor_fn
     from solvers.base import Diverged, RunContext, Solution, Unsupported
 
     out: dict = {"status": "ok", "reason": ""}
@@ -318,7 +245,7 @@ def _in_child(prep: Prepared, threads: int) -> dict:
         torch.set_default_dtype(torch.float32)
     problem = prep.problem
     eval_set = problem.eval_set(seed=prep.case.seed)
-    monitor = _monitor_fn(problem, eval_set)
+    monitor = monitor_fn(problem, eval_set)
     public = problem.public()
     progress = sys.stderr.isatty() and os.environ.get("LAPBENCH_CASE_PROGRESS", "1") != "0"
     ctx = RunContext(seed=prep.case.seed, monitor=monitor, progress=progress,
@@ -326,13 +253,16 @@ def _in_child(prep: Prepared, threads: int) -> dict:
     import scipy.fft
 
     # the memory baseline is taken once the problem's own data (evaluation set, exact values)
-    # exist: the record's peak_rss_delta_mb is the solver's own memory
+    # exist: the record's peak_rss_delta_mb is the solver's own memory. Free heap pages inherited
+    # from the harness are handed back first: a solver reusing them would add nothing to the
+    # resident set (measured: a 200 MiB array showed as 125 MiB after a PINN test in the parent)
+    _trim_heap()
     try:
         with open("/proc/self/clear_refs", "w") as fh:  # reset the peak-RSS counter
             fh.write("5")
     except OSError:
         pass
-    rss0, _ = _rss_mb(os.getpid())
+    rss0, _ = rss_mb(os.getpid())
     hwm = None
     solution = None
     runs: list[dict] = []
@@ -345,9 +275,9 @@ def _in_child(prep: Prepared, threads: int) -> dict:
             solution = result
             if prep.solver.tags.deterministic and not ctx.history:
                 solution, runs = _repeat(prep, public, ctx, solution)
-            _, hwm = _rss_mb(os.getpid())
+            _, hwm = rss_mb(os.getpid())
             t0 = time.perf_counter()
-            out["metrics"] = _measure(problem, solution, eval_set)
+            out["metrics"] = measure(problem, solution, eval_set)
             out["t_evaluate"] = time.perf_counter() - t0
             if prep.case.save_field and problem.kind != "eigen":
                 out["field"] = error_field(problem, solution)
@@ -374,7 +304,7 @@ def _in_child(prep: Prepared, threads: int) -> dict:
         if solution.eigenvalues is not None:
             out["eigenvalues"] = [float(v) for v in np.asarray(solution.eigenvalues).ravel()]
     if hwm is None:
-        _, hwm = _rss_mb(os.getpid())
+        _, hwm = rss_mb(os.getpid())
     out["peak_rss_mb"] = hwm
     out["peak_rss_delta_mb"] = max(0.0, hwm - rss0)
     return out
@@ -440,146 +370,13 @@ def _jsonable(info: dict) -> dict:
 
 # -- the parent -----------------------------------------------------------------------------------
 def _fork_and_wait(prep: Prepared, threads: int) -> dict:
-    """Fork, run the case in the child, enforce time and memory limits, collect the result."""
-    rfd, wfd = os.pipe()
-    limit_mb = prep.budget.memory_limit_mb
-    # The limit is on what the case adds: the forked child starts sharing the harness's pages
-    # (numpy, scipy, torch when preloaded: hundreds of MiB), which are not the case's memory.
-    base_mb, _ = _rss_mb(os.getpid())
-    crash_log = tempfile.TemporaryFile()  # where a dying child's Python stack goes (faulthandler)
-    sys.stdout.flush()
-    sys.stderr.flush()
-    pid = os.fork()
-    if pid == 0:  # child
-        code = 0
-        try:
-            os.close(rfd)
-            _set_pdeathsig()
-            faulthandler.enable(file=crash_log, all_threads=False)
-            try:
-                import resource
-
-                # hard backstop above the polled limit: allocation fails instead of swapping
-                _, hard = resource.getrlimit(resource.RLIMIT_AS)
-                with open("/proc/self/status") as fh:
-                    vms = next(float(line.split()[1]) * 1024 for line in fh if line.startswith("VmSize:"))
-                cap = int(vms + 2 * limit_mb * 2 ** 20)
-                if hard == resource.RLIM_INFINITY or cap < hard:
-                    resource.setrlimit(resource.RLIMIT_AS, (cap, hard))
-            except (OSError, ValueError, StopIteration):
-                pass
-            result = _in_child(prep, threads)
-            data = pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL)
-            view = memoryview(data)
-            while view:
-                n = os.write(wfd, view)
-                view = view[n:]
-        except BaseException:  # noqa: BLE001
-            code = 70
-        finally:
-            os._exit(code)
-    os.close(wfd)
-    try:
-        return _wait_for_child(prep, pid, rfd, base_mb, crash_log)
-    finally:
-        crash_log.close()
-
-
-def _crash_site(crash_log) -> str:
-    """`` at a.py:5 in f, b.py:9 in g``: the two innermost frames faulthandler wrote, or ''."""
-    try:
-        crash_log.seek(0)
-        text = crash_log.read(65536).decode("utf-8", "replace")
-    except OSError:
-        return ""
-    frames = []
-    for line in text.splitlines():
-        line = line.strip()
-        if line.startswith('File "') and '", line ' in line and len(frames) < 2:
-            fname, rest = line[6:].split('", line ', 1)
-            lineno, _, func = rest.partition(" in ")
-            frames.append(f"{Path(fname).name}:{lineno.strip()}" + (f" in {func.strip()}" if func else ""))
-    return " at " + ", called from ".join(frames) if frames else ""
-
-
-def _wait_for_child(prep: Prepared, pid: int, rfd: int, base_mb: float, crash_log) -> dict:
-    """The parent's side: poll the pipe, the clock and the child's memory; the child's result."""
-    limit_s = prep.budget.time_limit
-    limit_mb = prep.budget.memory_limit_mb
-    t0 = time.perf_counter()
-    chunks: list[bytes] = []
-    status = None
-    reason = ""
-    peak_seen = 0.0
-    exit_status = None
-    try:
-        while True:
-            remaining = limit_s + KILL_GRACE - (time.perf_counter() - t0)
-            if remaining <= 0:
-                status, reason = "timeout", f"exceeded the time limit of {limit_s:g} s (killed)"
-                break
-            ready, _, _ = select.select([rfd], [], [], min(POLL_INTERVAL, remaining))
-            if ready:
-                data = os.read(rfd, 1 << 20)
-                if not data:
-                    break  # child closed the pipe: finished or died
-                chunks.append(data)
-                continue
-            rss, _ = _rss_mb(pid)
-            peak_seen = max(peak_seen, rss)
-            if rss - base_mb > limit_mb:
-                status = "out_of_memory"
-                reason = (f"resident memory grew by {rss - base_mb:.0f} MiB (to {rss:.0f} MiB), above "
-                          f"budget.memory_limit_mb = {limit_mb:g} MiB (killed)")
-                break
-            done, st = os.waitpid(pid, os.WNOHANG)
-            if done:
-                exit_status = st
-                # drain whatever is left in the pipe
-                while True:
-                    data = os.read(rfd, 1 << 20)
-                    if not data:
-                        break
-                    chunks.append(data)
-                break
-    except BaseException:
-        # the harness itself is interrupted (Ctrl-C, SIGTERM turned exception): take the case down
-        # with it instead of waiting for it, so that no orphan keeps running after the sweep
-        status = status or "interrupted"
-        raise
-    finally:
-        if status in ("timeout", "out_of_memory", "interrupted"):
-            try:
-                os.kill(pid, signal.SIGKILL)
-            except ProcessLookupError:
-                pass
-        if exit_status is None:
-            try:
-                _, exit_status = os.waitpid(pid, 0)
-            except ChildProcessError:
-                exit_status = 0
-        os.close(rfd)
-    wall = time.perf_counter() - t0
-    if status is not None:
-        return {"status": status, "reason": reason, "wall": wall, "peak_rss_mb": peak_seen}
-    if chunks:
-        try:
-            result = pickle.loads(b"".join(chunks))
-            result["wall"] = wall
-            return result
-        except Exception:  # noqa: BLE001  (truncated pipe: the child died while writing)
-            pass
-    if os.WIFSIGNALED(exit_status):
-        sig = os.WTERMSIG(exit_status)
-        name = signal.Signals(sig).name if sig in signal.Signals._value2member_map_ else str(sig)
-        if sig == signal.SIGKILL and peak_seen - base_mb > 0.8 * limit_mb:
-            return {"status": "out_of_memory", "reason": f"killed by {name} near the memory limit",
-                    "wall": wall, "peak_rss_mb": peak_seen}
-        return {"status": "crashed", "reason": f"case process killed by signal {name}{_crash_site(crash_log)}",
-                "wall": wall, "peak_rss_mb": peak_seen}
-    code = os.WEXITSTATUS(exit_status) if os.WIFEXITED(exit_status) else -1
-    return {"status": "crashed", "reason": f"case process exited with code {code} without a result",
-            "wall": wall, "peak_rss_mb": peak_seen}
+    """The case in a forked child (bench.isolate), within its time and memory limits."""
+    limit = prep.budget.time_limit
+    out = run_isolated(lambda: _in_child(prep, threads), limit + KILL_GRACE, prep.budget.memory_limit_mb,
+                       limit_text=f"the time limit of {limit:g} s")
+    if out.status is not None:
+        return {"status": out.status, "reason": out.reason, "wall": out.wall, "peak_rss_mb": out.peak_rss_mb}
+    return {**out.result, "wall": out.wall}
 
 
 def _ensure_reference(prep: Prepared) -> str | None:
@@ -616,7 +413,7 @@ def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tu
         cal = {"calibration_s": cal_s, "calibration_age_s": round(cal_age, 3), "calibration_kernel": calibration.KERNEL}
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     load0 = os.getloadavg()[0] if hasattr(os, "getloadavg") else None
-    busy0, own0 = _cpu_times()
+    busy0, own0 = cpu_times()
     if prep.unsupported is not None:
         child = {"status": "unsupported", "reason": prep.unsupported, "wall": 0.0}
     elif ref_error is not None:
@@ -625,7 +422,7 @@ def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tu
         type(prep.solver).preload()
         _thread_pools()
         child = _fork_and_wait(prep, threads)
-    busy1, own1 = _cpu_times()
+    busy1, own1 = cpu_times()
     wall = child.get("wall", 0.0)
     foreign = max(0.0, (busy1 - busy0) - (own1 - own0))
     record = _build_record(prep, child, threads, cores, started, {

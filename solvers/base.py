@@ -182,6 +182,10 @@ class Solver:
         if problem.domain.kind not in self.tags.domains:
             return False, (f"solver {self.name} handles domains {sorted(self.tags.domains)}, "
                            f"not {problem.domain.kind!r}")
+        dim = getattr(problem.domain, "dim", 2)
+        if dim not in self.tags.dims:
+            return False, (f"solver {self.name} handles dimensions {sorted(self.tags.dims)}, "
+                           f"not {dim}")
         return self._supports(problem)
 
     def _supports(self, problem) -> tuple[bool, str]:

@@ -1,12 +1,12 @@
 """Finite elements through scikit-fem: Lagrange P1 and P2 on triangle meshes built per domain.
 
 Meshes: polygons (and rectangles) start from the ear-clipped, Lawson-flipped coarse
-triangulation of `bench.shapes` and are refined uniformly (``level`` times), so meshes of
+triangulation of `bench.domains.polygon` and are refined uniformly (``level`` times), so meshes of
 successive levels are nested. Disks start from scikit-fem's four-triangle disk and move new
 boundary nodes onto the circle after each refinement; annuli use a polar mesh with nodes on both
 circles. For P2 on curved boundaries the mesh is quadratic (isoparametric): edge midpoints on
 the boundary lie on the circle, so the geometry error O(h^3) does not spoil the order.
-Eigenproblems (`fem_eigen`, also the computed references of `bench.eigen_problems`) assemble
+Eigenproblems (`fem_eigen`, also the computed references of `bench.problems.reference`) assemble
 stiffness and mass on the same meshes and use the shared shift-invert Lanczos of `solvers.eigen`.
 """
 from __future__ import annotations
@@ -53,7 +53,7 @@ class FEMParams:
 
 def _coarse(domain):
     """Coarse P1 mesh (p (2, N), t (3, T)) and its largest edge, per domain kind."""
-    from bench.shapes import Annulus, Disk, Polygon
+    from bench.domains import Annulus, Disk, Polygon
 
     if domain.kind == "rectangle":
         x0, x1, y0, y1 = domain.bbox

@@ -10,8 +10,9 @@ import numpy as np
 import pytest
 from scipy.special import jn_zeros
 
-from bench.eigen_metrics import eigen_errors, eigenspace_angle
-from bench.eigen_problems import LSHAPE_LAMBDA1, computed_reference
+from bench.metrics import eigen_errors, eigenspace_angle
+from bench.problems.eigen import LSHAPE_LAMBDA1
+from bench.problems.reference import computed_reference
 from bench.problems import make_problem
 from solvers import SOLVERS
 from solvers.base import Budget, RunContext, Solution
@@ -301,7 +302,7 @@ def test_trace_objective_is_the_sum_of_ritz_values_and_refuses_dependent_modes()
 
     from solvers.base import Diverged
     from solvers.pinn.model import Network
-    from solvers.pinn_eigen import _trace_objective
+    from solvers.pinn.eigen import _trace_objective
 
     gen = torch.Generator().manual_seed(3)
     x = torch.rand(400, 2, dtype=torch.float64, generator=gen)

@@ -185,12 +185,12 @@ def test_boundary_function_derivatives_closed_form():
 
 
 def test_boundary_extension_laplacian_on_the_disk():
-    """Finite-difference derivatives of the disk's extension (bench.shapes.Disk) against closed
+    """Finite-difference derivatives of the disk's extension (bench.domains.Disk) against closed
     forms. On the unit disk g = x^2 - y^2 is cos 2 theta on the circle (mean 0), so
     g_ext = s(t) cos 2 theta with t = (rho - rho0) / (1 - rho0) and s(t) = 10 t^3 - 15 t^4 + 6 t^5;
     in polar coordinates Lap g_ext = (s_rr + s_r / rho - 4 s / rho^2) cos 2 theta; and
     phi = 1 - r^2 has Lap phi = -4."""
-    from bench.shapes import DISK_BLEND_INNER as r0
+    from bench.domains.round import DISK_BLEND_INNER as r0
 
     prob = make_problem({"name": "disk_harmonic"}).public()
     g = lambda p: p[:, 0] ** 2 - p[:, 1] ** 2  # noqa: E731

@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 
 from bench.config import ConfigError
+from bench.numerics import fd_laplacian  # fourth-order central differences (common practice)
 from tests.conftest import LAPBENCH, ROOT
 
 EXAMPLE = ROOT / "examples" / "sor_solver"
@@ -278,14 +279,6 @@ def test_plugin_may_not_take_a_builtin_name_or_disagree_with_its_config(broken, 
 
 
 # -- user problems ----------------------------------------------------------------------------------
-def fd_laplacian(u, pts, h):
-    """Fourth-order central differences of Laplace(u) (common practice)."""
-    out = np.zeros(len(pts))
-    for d in (0, 1):
-        e = np.zeros(2)
-        e[d] = h
-        out += (-u(pts + 2 * e) + 16 * u(pts + e) - 30 * u(pts) + 16 * u(pts - e) - u(pts - 2 * e)) / (12 * h * h)
-    return out
 
 
 def _load(path):

@@ -9,18 +9,11 @@ from omegaconf import OmegaConf
 
 from bench.cli import conf_dir
 from bench.problems import BoundaryDataError, make_problem, plate_series, plate_terms
+from bench.numerics import fd_laplacian  # fourth-order central differences (common practice)
 
 RECT_PRESETS = ["sine", "harmonic", "peak", "wavefront", "layer", "expr"]
 
 
-def fd_laplacian(u, pts, h):
-    """Fourth-order central differences of Laplace(u) (common practice), float64."""
-    out = np.zeros(len(pts))
-    for d in (0, 1):
-        e = np.zeros(2)
-        e[d] = h
-        out += (-u(pts + 2 * e) + 16 * u(pts + e) - 30 * u(pts) + 16 * u(pts - e) - u(pts - 2 * e)) / (12 * h * h)
-    return out
 
 
 @pytest.mark.parametrize("name", RECT_PRESETS)

@@ -9,7 +9,8 @@ from bench.cli import conf_dir
 from bench.config import ConfigError
 from bench.domains import Rectangle, make_domain
 from bench.problems import BoundaryDataError, make_problem
-from bench.shapes import LSHAPE_VERTICES, Annulus, Disk, Polygon, lshape
+from bench.domains import LSHAPE_VERTICES, Annulus, Disk, Polygon, lshape
+from bench.numerics import fd_laplacian  # fourth-order central differences (common practice)
 
 SQUARE = [[0, 0], [1, 0], [1, 1], [0, 1]]
 TRIANGLE = [[0, 0], [4, 0], [0, 3]]
@@ -215,14 +216,6 @@ def _boundary_only(u, dom):
 
 # -- problems on shapes ---------------------------------------------------------------------------
 
-def fd_laplacian(u, pts, h):
-    """Fourth-order central differences of Laplace(u) (common practice)."""
-    out = np.zeros(len(pts))
-    for d in (0, 1):
-        e = np.zeros(2)
-        e[d] = h
-        out += (-u(pts + 2 * e) + 16 * u(pts + e) - 30 * u(pts) + 16 * u(pts - e) - u(pts - 2 * e)) / (12 * h * h)
-    return out
 
 
 @pytest.mark.parametrize("cfg", [

@@ -104,8 +104,8 @@ def step_ratio(repeats: int) -> list[dict]:
     from bench.problems import make_problem
     from solvers.pinn.losses import Loss
     from solvers.pinn.model import Network
-    from solvers.pinn.solver import retain_freed_memory
-    from solvers.pinn.train import Collocation
+    from solvers.pinn.runtime import retain_freed_memory
+    from solvers.pinn.losses import Collocation
 
     retain_freed_memory()                     # as the PINN solver does in its case process
     prob = make_problem({"name": "sine"}).public()

@@ -16,7 +16,7 @@ from solvers.pinn.options import (ACTIVATIONS, BOUNDARIES, LAPLACIAN_METHODS, LO
 from solvers.pinn.runtime import preload_torch, retain_freed_memory
 
 __all__ = ["PINN", "PINNParams", "PINNSoft", "PINNHard", "PINNRitz", "PINNFourier", "PINNRar",
-           "PRESETS", "retain_freed_memory"]
+           "PRESETS"]
 
 EVAL_CHUNK = 16384          # points per forward pass in evaluate(): bounds its memory
 # L-BFGS restarts with a fresh curvature history after an early stop (train.Schedule): none.

@@ -29,8 +29,6 @@ from typing import Callable
 import torch
 
 from solvers.base import Diverged
-# Collocation moved to losses.py; bench/perf/pinn_step.py still imports it from here
-from solvers.pinn.losses import Collocation  # noqa: F401
 
 __all__ = ["Objective", "Plateau", "Schedule", "TrainResult", "train", "CHECKPOINT_FIRST",
            "CHECKPOINT_GROWTH", "LBFGS_CHUNK", "LBFGS_EVALS"]

@@ -17,7 +17,7 @@ differences of the exact solution, boundary values at sampled boundary points), 
 is a config error, not a silently wrong benchmark.
 
 Without an exact solution (`source` and `boundary` only) the harness computes a reference: the
-most accurate registered classical solver that supports the problem (`REFERENCE_SOLVERS`) at a
+most accurate registered classical solver that supports the problem (`bench.problems.reference.REFERENCE_SOLVERS`) at a
 fine resolution, with an error estimate from the same solver at a half and a quarter of that
 resolution: ``|u_fine - u_half| / (2^p - 1)`` (Richardson's estimate) with p the smaller of the
 method's order and the observed order, so that singular data do not get an optimistic one. The
@@ -31,39 +31,23 @@ from __future__ import annotations
 
 import dataclasses
 import functools
-import json
 import math
 
 import numpy as np
 
 from bench.config import ConfigError, positive
 from bench.domains import make_domain
-from bench.problems import Problem, register_problem
+from bench.numerics import fd_laplacian
+from bench.problems.base import Problem
+from bench.problems.reference import ReferenceConfig, attach_reference
 
-__all__ = ["CustomParams", "ReferenceConfig", "custom", "REFERENCE_SOLVERS"]
+__all__ = ["CustomParams", "custom", "CATALOGUE"]
 
-# Reference solvers, most accurate first: (registry name, resolution option, fine value, order).
-# The order p is the method's convergence order for smooth data; it enters the error estimate.
-REFERENCE_SOLVERS = (
-    ("fst9", "n", 512, 4),      # compact 9-point by sine transform: O(N log N), rectangles
-    ("fd9", "n", 256, 4),
-    ("fem_p2", "level", 5, 3),  # P2 elements, L2 order 3 (when registered: shapes issue)
-    ("fem_p1", "level", 6, 2),
-    ("fd5", "n", 512, 2),
-)
 # Relative tolerance of the consistency checks between exact, source and boundary. The finite
 # differences (fourth order, h = 1e-3 x domain size) are accurate to ~1e-10 for smooth data;
 # the bound is loose on purpose so that only real mistakes (sign, factor, wrong term) trip it.
 CONSISTENCY_RTOL = 1e-3
 FD_STEP = 1e-3
-
-
-@dataclasses.dataclass
-class ReferenceConfig:
-    """How to compute a reference when no exact solution is given."""
-
-    solver: str | None = None       # a registered classical solver; None: first fitting REFERENCE_SOLVERS
-    resolution: int | None = None   # its resolution option (n or level); None: the table's value
 
 
 @dataclasses.dataclass
@@ -119,7 +103,7 @@ def _from_expression(text: str, field: str):
 
 def _from_callable(spec: dict, field: str, probe: np.ndarray):
     """A user's vectorised callable ``{_target_: pkg.mod.func, **keywords}``, probed once."""
-    from bench.plugins import import_object
+    from bench.config import import_object
 
     spec = dict(spec)
     target = spec.pop("_target_", None)
@@ -158,16 +142,6 @@ def _data(spec, field: str, probe: np.ndarray):
     return f, None, f"callable {spec.get('_target_')}"
 
 
-def _fd_laplacian(u, pts: np.ndarray, h: float) -> np.ndarray:
-    """Fourth-order central differences of Laplace(u) (common practice)."""
-    out = np.zeros(len(pts))
-    for d in (0, 1):
-        e = np.zeros(2)
-        e[d] = h
-        out += (-u(pts + 2 * e) + 16 * u(pts + e) - 30 * u(pts) + 16 * u(pts - e) - u(pts - 2 * e)) / (12 * h * h)
-    return out
-
-
 def _check_source(u, f, domain, field: str) -> None:
     rng = np.random.default_rng(0)
     h = FD_STEP * domain.scale
@@ -175,7 +149,7 @@ def _check_source(u, f, domain, field: str) -> None:
     pts = pts[domain.distance(pts) > 3 * h][:200]
     if not len(pts):
         return
-    lap = _fd_laplacian(u, pts, h)
+    lap = fd_laplacian(u, pts, h)
     fv = f(pts) if f is not None else np.zeros(len(pts))
     scale = max(1.0, float(np.max(np.abs(fv))), float(np.max(np.abs(lap))))
     bad = np.abs(-lap - fv)
@@ -196,109 +170,6 @@ def _check_boundary(u, g, domain, field: str) -> None:
         raise ConfigError(f"`{field}` disagrees with problem.exact on the boundary: at "
                           f"{pts[i].round(6).tolist()} g = {a[i]:.6g} but u = {b[i]:.6g}; fix the data "
                           f"or set problem.check_data=false")
-
-
-# -- computed reference --------------------------------------------------------------------------
-def _reference_solver(problem: Problem, cfg: ReferenceConfig):
-    """(solver class, option, fine value, order) of the reference solver for `problem`."""
-    from solvers import SOLVERS
-
-    table = {name: (opt, fine, order) for name, opt, fine, order in REFERENCE_SOLVERS}
-    if cfg.solver is not None:
-        if cfg.solver not in table or cfg.solver not in SOLVERS:
-            usable = [n for n, *_ in REFERENCE_SOLVERS if n in SOLVERS]
-            raise ConfigError(f"`problem.reference.solver` must be one of {', '.join(usable)}; got {cfg.solver!r}")
-        names = [cfg.solver]
-    else:
-        names = [n for n, *_ in REFERENCE_SOLVERS if n in SOLVERS]
-    pub = problem.public()
-    for name in names:
-        cls = SOLVERS[name]
-        opt, fine, order = table[name]
-        if cfg.resolution is not None:
-            fine = cfg.resolution
-        solver = cls(params={opt: fine})
-        ok, reason = solver.supports(pub)
-        if ok:
-            return cls, opt, fine, order
-        if cfg.solver is not None:
-            raise ConfigError(f"`problem.reference.solver` {name} cannot run this problem: {reason}")
-    raise ConfigError(f"`problem.exact` is required here: no registered classical solver can compute a "
-                      f"reference for a {problem.kind} problem on a {problem.domain.kind} (tried "
-                      f"{', '.join(names) or 'none'})")
-
-
-_REFERENCE_CACHE: dict[str, tuple] = {}
-
-
-def _computed_reference(key: str, problem: Problem, cfg: ReferenceConfig):
-    """Coarse and fine runs of the reference solver (cached per problem config within a process:
-    planning and the basic launcher's jobs build the same problem several times)."""
-    from solvers.base import Budget, RunContext
-
-    if key in _REFERENCE_CACHE:
-        return _REFERENCE_CACHE[key]
-    cls, opt, fine, order = _reference_solver(problem, cfg)
-    ladder = [fine // 4, fine // 2, fine] if opt == "n" else [fine - 2, fine - 1, fine]
-    if ladder[0] < 2:
-        raise ConfigError(f"`problem.reference.resolution` must be at least {8 if opt == 'n' else 3}, got {fine}")
-    budget = Budget(time_limit=3600.0)
-    runs = []
-    for res in ladder:
-        try:
-            runs.append(cls(params={opt: res}).solve(problem.public(), budget, RunContext()))
-        except ConfigError:
-            raise
-        except Exception as exc:  # noqa: BLE001  (the data break the reference solver)
-            raise ConfigError(f"`problem` reference run {cls.name} {opt}={res} failed: "
-                              f"{type(exc).__name__}: {exc}") from None
-    out = _REFERENCE_CACHE[key] = (cls.name, opt, ladder, order, runs)
-    return out
-
-
-def _estimate(d_coarse: float, d_fine: float, order: int) -> tuple[float, float]:
-    """(error estimate of the finest run, order used) from differences of successive runs.
-
-    Richardson's estimate d_fine / (2^p - 1) with p the smaller of the method's order and the
-    observed order log2(d_coarse / d_fine), so that data whose singularities slow convergence
-    (re-entrant corners, incompatible corner data) do not get an optimistic estimate (the
-    observed-order safeguard of P. J. Roache, "Perspective: a method for uniform reporting of
-    grid refinement studies", J. Fluids Eng. 116 (1994) 405-413). Outside the asymptotic range
-    (no observed convergence) the estimate is d_fine itself.
-    """
-    if d_fine == 0.0:
-        return 0.0, float(order)
-    if d_coarse <= d_fine:
-        return d_fine, 0.0
-    p = min(float(order), math.log2(d_coarse / d_fine))
-    return d_fine / (2.0 ** p - 1.0) if p > 1e-3 else d_fine, p
-
-
-def _attach_reference(problem: Problem, params: CustomParams) -> Problem:
-    """Fill the exact solution (or eigenvalues) of `problem` with a computed, labelled reference."""
-    key = json.dumps(dataclasses.asdict(params), sort_keys=True, default=str)
-    name, opt, ladder, order, runs = _computed_reference(key, problem, params.reference)
-    sol_f = runs[-1]
-    if problem.kind == "eigen":
-        lams = [np.asarray(r.eigenvalues, dtype=float) for r in runs]
-        k = min(min(len(v) for v in lams), problem.n_eigs)
-        rel = lambda a, b: float(np.max(np.abs(a[:k] - b[:k]) / np.abs(lams[-1][:k])))  # noqa: E731
-        err, p_used = _estimate(rel(lams[1], lams[0]), rel(lams[2], lams[1]), order)
-        problem.eigenvalues = lams[-1][:k]
-        problem.modes = sol_f.modes
-        what = f"eigenvalues, estimated max relative error {err:.2e}"
-    else:
-        es = problem.domain.eval_set(seed=0, level=problem.eval_level)
-        pts = es.all_points
-        u = [r.evaluate(pts) for r in runs]
-        err, p_used = _estimate(float(np.max(np.abs(u[1] - u[0]))), float(np.max(np.abs(u[2] - u[1]))), order)
-        problem.exact = sol_f.evaluate
-        what = f"estimated max error {err:.2e}"
-    problem.params.update(reference="computed", reference_error=float(f"{err:.3g}"))
-    problem.source = (f"computed reference (no exact solution): {name} at {opt}={ladder[-1]}; {what} "
-                      f"(Richardson with order {p_used:.2f} = min(method order {order}, observed order "
-                      f"over {opt}={ladder[0]}, {ladder[1]}, {ladder[2]})); data: {problem.source}")
-    return problem
 
 
 # -- the builder ---------------------------------------------------------------------------------
@@ -328,7 +199,7 @@ def custom(p: CustomParams) -> Problem:
                            eval_level=level)
         prob = Problem("custom", "eigen", domain, g=zero, n_eigs=n, params={"n_eigs": n},
                        source="Dirichlet eigenproblem", eval_level=level)
-        return _attach_reference(prob, p)
+        return attach_reference(prob, p)
 
     u, u_expr, u_text = _data(p.exact, "problem.exact", probe)
     f, f_expr, f_text = _data(p.source, "problem.source", probe)
@@ -345,7 +216,7 @@ def custom(p: CustomParams) -> Problem:
         f_expr = -(sp.diff(u_expr, X, 2) + sp.diff(u_expr, Y, 2))
         if sp.simplify(f_expr) != 0:
             f, _ = _from_expression(str(f_expr), "problem.source")
-            f_text, derived = f"-Laplace(u) by sympy", True
+            f_text, derived = "-Laplace(u) by sympy", True
         else:
             f_expr = sp.Integer(0)
     if f_expr is not None and f_expr == 0:
@@ -373,8 +244,8 @@ def custom(p: CustomParams) -> Problem:
     params.update(source=f_text or "0", boundary=g_text)
     prob = Problem("custom", kind, domain, f=f, g=g, params=params,
                    source=f"f = {f_text or 0}; g = {g_text}", eval_level=level)
-    return _attach_reference(prob, p)
+    return attach_reference(prob, p)
 
 
-register_problem("custom", CustomParams, custom,
-                 "user-defined problem: own domain, data as expressions or callables, stated or computed reference")
+CATALOGUE = {"custom": (CustomParams, custom, "user-defined problem: own domain, data as expressions or callables, "
+                                             "stated or computed reference")}

@@ -1,147 +1,18 @@
-"""The problem catalogue: each entry is data plus its exact solution, mathematics in the docstring.
-
-Conventions: ``-Laplace(u) = f`` in the domain, ``u = g`` on the boundary (``kind`` is
-``laplace`` when f = 0, ``poisson`` otherwise); eigen problems ``-Laplace(u) = lambda u``,
-``u = 0`` on the boundary. Points are arrays of shape ``(m, 2)``.
-
-Solvers receive `Problem.public()`: a view without the exact solution or reference values,
-whose boundary data refuses points that are not on the boundary.
-"""
+"""Problems on rectangles with closed-form or manufactured solutions: sine, harmonic, plate,
+peak, wavefront, layer (each builder's docstring states the mathematics and its source)."""
 from __future__ import annotations
 
 import dataclasses
 import math
-from typing import Callable, Literal
 
 import numpy as np
 
-from bench.config import ConfigError, build_params, positive
-from bench.domains import Domain, Rectangle, make_domain
+from bench.config import ConfigError, positive
+from bench.domains import Rectangle
 from bench.fields import Field
+from bench.problems.base import MAX_EVAL_LEVEL, Problem, rectangle_domain
 
-__all__ = ["Problem", "PROBLEMS", "make_problem", "BoundaryDataError", "register_problem"]
-
-
-# Panels per side of the evaluation quadrature for sharp problems, at most: 256 panels of 4 x 4
-# Gauss points is 1 M points per evaluation. Finer sets (16 M points at 1024) made evaluation
-# cost more than the solves and ran spectral interpolants out of memory.
-MAX_EVAL_LEVEL = 256
-
-
-class BoundaryDataError(ValueError):
-    """A solver evaluated boundary data away from the boundary (it would see the exact solution)."""
-
-
-@dataclasses.dataclass
-class Problem:
-    """One test problem.
-
-    Attributes
-    ----------
-    name : str
-        Catalogue key (= conf/problem/<name>.yaml = the ``problem`` column of records).
-    kind : {'laplace', 'poisson', 'eigen'}
-    domain : Domain
-    f, g : callable or None
-        Source term and Dirichlet data (vectorised over points).
-    exact : callable or None
-        Exact solution (harness only).
-    params : dict
-        The difficulty knobs as configured (frequency, width, ...).
-    source : str
-        Where the exact solution or reference values come from.
-    n_eigs : int
-        Eigen problems: how many eigenvalues are wanted.
-    eigenvalues : ndarray or None
-        Eigen problems: reference eigenvalues (harness only).
-    eval_level : int
-        Panels per side of the evaluation quadrature (raise for sharp features).
-    eval_exclude : callable or None
-        Mask of evaluation points to leave out (e.g. a strip next to a discontinuity), stated
-        in `source`.
-    """
-
-    name: str
-    kind: Literal["laplace", "poisson", "eigen"]
-    domain: Domain
-    f: Callable | None = None
-    g: Callable | None = None
-    exact: Callable | None = None
-    params: dict = dataclasses.field(default_factory=dict)
-    source: str = ""
-    n_eigs: int = 0
-    eigenvalues: np.ndarray | None = None
-    modes: Callable | None = None
-    eval_level: int = 48
-    eval_exclude: Callable | None = None
-    is_public: bool = False
-
-    def public(self) -> "Problem":
-        """The view a solver gets: no exact solution, boundary data guarded."""
-        if self.is_public:
-            return self
-        g = _guarded(self.g, self.domain) if self.g is not None else None
-        return dataclasses.replace(self, exact=None, eigenvalues=None, modes=None, g=g,
-                                   is_public=True)
-
-    def f_or_zero(self, points: np.ndarray) -> np.ndarray:
-        if self.f is None:
-            return np.zeros(len(points))
-        return np.asarray(self.f(points), dtype=float)
-
-    def f_on_grid(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
-        """f on the tensor grid x by y (broadcast where f is a `bench.fields.Field`)."""
-        from bench.fields import on_grid
-
-        if self.f is None:
-            return np.zeros((len(x), len(y)))
-        return on_grid(self.f, x, y)
-
-    def eval_set(self, seed: int = 0):
-        es = self.domain.eval_set(seed=seed, level=self.eval_level)
-        if self.eval_exclude is None:
-            return es
-        keep = ~self.eval_exclude(es.points)
-        keep_x = ~self.eval_exclude(es.extra)
-        return dataclasses.replace(es, points=es.points[keep], weights=es.weights[keep],
-                                   extra=es.extra[keep_x])
-
-    def describe(self) -> dict:
-        return {"name": self.name, "kind": self.kind, "domain": self.domain.to_dict(),
-                "params": self.params, "source": self.source}
-
-
-def _guarded(g: Callable, domain: Domain) -> Callable:
-    def boundary_data(points):
-        p = np.asarray(points, dtype=float)
-        off = ~domain.on_boundary(p, tol=1e-8 * domain.scale)
-        if off.any():
-            raise BoundaryDataError(
-                f"boundary data evaluated at {int(off.sum())} point(s) off the boundary, "
-                f"e.g. {p[off][0].tolist()}")
-        return np.asarray(g(p), dtype=float)
-
-    return boundary_data
-
-
-# ------------------------------------------------------------------------------------------
-# The catalogue. Each builder takes its validated Params and returns a Problem.
-# ------------------------------------------------------------------------------------------
-
-@dataclasses.dataclass
-class RectDomainConfig:
-    kind: str = "rectangle"
-    x0: float = 0.0
-    x1: float = 1.0
-    y0: float = 0.0
-    y1: float = 1.0
-
-
-def _rect(cfg: dict | None) -> Rectangle:
-    d = make_domain(cfg or {"kind": "rectangle"})
-    if not isinstance(d, Rectangle):
-        raise ConfigError(f"`problem.domain.kind` must be 'rectangle' for this problem; got {d.kind!r}")
-    return d
+__all__ = ["sine", "harmonic", "plate", "peak", "wavefront", "layer", "plate_series", "plate_terms", "CATALOGUE"]
 
 
 @dataclasses.dataclass
@@ -162,7 +33,7 @@ def sine(p: SineParams) -> Problem:
     [x0, x1] x [y0, y1]; ``f = pi^2 (k^2/a^2 + l^2/b^2) u``, u = 0 on the boundary.
     Source: closed form (separation of variables) [common practice].
     """
-    d = _rect(p.domain)
+    d = rectangle_domain(p.domain)
     a, b = d.lengths
     lam = math.pi ** 2 * (p.k ** 2 / a ** 2 + p.l ** 2 / b ** 2)
 
@@ -195,7 +66,7 @@ def harmonic(p: HarmonicParams) -> Problem:
     ``u = exp(omega x) cos(omega y)`` (the real part of exp(omega z)), harmonic everywhere;
     ``g = u`` on the boundary. Source: closed form [common practice].
     """
-    d = _rect(p.domain)
+    d = rectangle_domain(p.domain)
     w = p.omega
 
     u = Field(lambda x, y: np.exp(w * x) * np.cos(w * y))
@@ -268,7 +139,7 @@ def plate(p: PlateParams) -> Problem:
     ``profile='sine'``: u(x, b) = U0 sin(pi x/a), exact single term
     u = U0 sin(pi x/a) sinh(pi y/a)/sinh(pi b/a); no exclusion.
     """
-    d = _rect(p.domain)
+    d = rectangle_domain(p.domain)
     a, b = d.lengths
     U0 = p.temperature
     x0, y0 = d.x0, d.y0
@@ -404,70 +275,12 @@ def layer(p: LayerParams) -> Problem:
                    eval_level=level)
 
 
-@dataclasses.dataclass
-class ExprParams:
-    u: str = "sin(pi*x)*sin(pi*y)"
-    domain: dict = dataclasses.field(default_factory=lambda: {"kind": "rectangle"})
-    eval_level: int = 48
-
-    def __post_init__(self):
-        positive("eval_level", self.eval_level, integer=True, maximum=2048)
-
-
-def expr(p: ExprParams) -> Problem:
-    """Manufactured solution from an expression string for u(x, y) on any domain.
-
-    sympy derives f = -Laplace(u) and the Dirichlet data g = u; the string is parsed safely
-    (bench.expr). Source: method of manufactured solutions [common practice].
-    """
-    from bench.expr import manufactured
-
-    m = manufactured(p.u, field="problem.u")
-    d = make_domain(p.domain)
-    return Problem("expr", "laplace" if m.is_harmonic else "poisson", d, f=None if m.is_harmonic else m.f,
-                   g=m.u, exact=m.u, params={"u": p.u},
-                   source=f"manufactured: u = {p.u}; f = -Laplace(u) by sympy",
-                   eval_level=p.eval_level)
-
-
 # name -> (Params schema, builder, one-line description)
-PROBLEMS: dict[str, tuple[type, Callable, str]] = {
+CATALOGUE = {
     "sine": (SineParams, sine, "Poisson sine mode sin(k pi x) sin(l pi y) on a rectangle"),
     "harmonic": (HarmonicParams, harmonic, "Laplace, u = exp(w x) cos(w y), nonzero data on all edges"),
     "plate": (PlateParams, plate, "steady heated plate: Laplace, hot top edge, Fourier-series solution"),
     "peak": (PeakParams, peak, "Gaussian peak (Mitchell 2013), width knob alpha"),
     "wavefront": (WavefrontParams, wavefront, "circular wave front (Mitchell 2013), sharpness alpha"),
     "layer": (LayerParams, layer, "manufactured boundary layers of width eps at x=1, y=1"),
-    "expr": (ExprParams, expr, "manufactured solution from an expression for u(x, y), any domain"),
 }
-
-
-def register_problem(name: str, params: type, builder: Callable, description: str) -> None:
-    """Add a catalogue entry (used by shape and eigen modules)."""
-    PROBLEMS[name] = (params, builder, description)
-
-
-def make_problem(cfg) -> Problem:
-    """Build a problem from its config mapping (``name`` plus the builder's fields)."""
-    if hasattr(cfg, "items") and not isinstance(cfg, dict):
-        from omegaconf import OmegaConf
-
-        cfg = OmegaConf.to_container(cfg, resolve=True)
-    cfg = dict(cfg)
-    name = cfg.get("name")
-    _load_extensions()
-    if name not in PROBLEMS:
-        raise ConfigError(f"`problem.name` must be one of {', '.join(sorted(PROBLEMS))}; got {name!r}")
-    schema, builder, _ = PROBLEMS[name]
-    params = build_params(schema, cfg, prefix="problem")
-    return builder(params)
-
-
-_EXTENSIONS = ("bench.shapes", "bench.eigen_problems", "bench.custom")  # modules that register further problems on import (shapes, eigen, ...)
-
-
-def _load_extensions():
-    import importlib
-
-    for mod in _EXTENSIONS:
-        importlib.import_module(mod)

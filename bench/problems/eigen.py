@@ -1,13 +1,13 @@
 """Dirichlet Laplacian eigenvalue problems: -Laplace(u) = lambda u in the domain, u = 0 on its boundary.
 
-Importing this module registers the catalogue entries ``eigen_rect`` (rectangles, closed form),
+The catalogue entries are ``eigen_rect`` (rectangles, closed form),
 ``eigen_disk`` (squares of Bessel zeros), ``eigen_lshape`` (published and exact values plus a
 computed reference) and ``eigen_polygon`` (any polygon: computed reference). Each has the knob
 ``k``, the number of eigenvalues wanted (with multiplicity, ascending).
 
 Reference eigenvalues and modes are the harness's only: `Problem.public()` strips them. A problem
 may carry more reference eigenvalues than ``k``: the list always ends with a complete cluster of
-equal eigenvalues, so that the eigenspace metric (bench/eigen_metrics.py) can compare whole
+equal eigenvalues, so that the eigenspace metric (bench/metrics.py) can compare whole
 eigenspaces. ``cluster_rtol`` says which reference eigenvalues count as equal.
 
 Computed references (no closed form): the harness, not the solver, runs the most accurate
@@ -24,22 +24,17 @@ resolutions, estimated accuracy) in ``problem.reference``.
 from __future__ import annotations
 
 import dataclasses
-import fcntl
-import hashlib
-import json
 import math
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
 
 from bench.config import ConfigError, positive
-from bench.domains import Rectangle, make_domain
-from bench.problems import Problem, register_problem
+from bench.domains import Disk, Polygon, Rectangle, lshape, make_domain
+from bench.problems.base import Problem
+from bench.problems.reference import ReferenceModes, computed_reference
 
-__all__ = ["EigenProblem", "rectangle_spectrum", "disk_spectrum", "computed_reference",
-           "richardson", "LSHAPE_LAMBDA1", "MAX_K", "REFERENCE_VERSION"]
+__all__ = ["EigenProblem", "rectangle_spectrum", "disk_spectrum", "LSHAPE_LAMBDA1", "MAX_K", "CATALOGUE"]
 
 # The first Dirichlet eigenvalue of the L-shaped region [-1, 1]^2 minus [0, 1] x [-1, 0]:
 # Betcke & Trefethen, "Reviving the method of particular solutions", SIAM Review 47 (2005)
@@ -47,7 +42,6 @@ __all__ = ["EigenProblem", "rectangle_spectrum", "disk_spectrum", "computed_refe
 LSHAPE_LAMBDA1 = 9.6397238440219
 
 MAX_K = 200          # eigenvalues per problem; beyond this the dense and Lanczos paths get slow
-REFERENCE_VERSION = 1  # bump when the computed-reference recipe changes (invalidates the cache)
 CLOSED_FORM_RTOL = 1e-9  # closed-form eigenvalues equal to this relative tolerance are one cluster
 
 
@@ -102,7 +96,7 @@ class EigenProblem(Problem):
                                f"of lambda_{self.n_eigs} may extend beyond them; raise `problem.ref_extra`")
         self.eigenvalues = lam[:n]
         self.cluster_rtol = rtol
-        self.modes = _ReferenceModes(ref["mesh_p"], ref["mesh_t"], ref["order"], ref["modes"], n)
+        self.modes = ReferenceModes(ref["mesh_p"], ref["mesh_t"], ref["order"], ref["modes"], n)
         self.reference = {
             "kind": "computed" if any(s.startswith("computed") for s in sources[: self.n_eigs]) else "published",
             "solver": ref["solver"], "resolutions": ref["resolutions"], "observed_order": ref["order_obs"][:n],
@@ -235,8 +229,6 @@ def eigen_disk(p: DiskEigenParams) -> EigenProblem:
     """
     from scipy.special import jn_zeros, jv
 
-    from bench.shapes import Disk
-
     d = make_domain(p.domain)
     if not isinstance(d, Disk):
         raise ConfigError(f"`problem.domain.kind` must be 'disk' for this problem; got {d.kind!r}")
@@ -300,8 +292,6 @@ def eigen_polygon(p: PolygonEigenParams) -> EigenProblem:
     (see the module docstring). The default quadrilateral (0,0), (2,0), (1.6,1.1), (0.3,1.3) is of
     this project's own choosing: convex, no symmetry, no closed form.
     """
-    from bench.shapes import Polygon
-
     d = make_domain(p.domain)
     if not isinstance(d, Polygon):
         raise ConfigError(f"`problem.domain.kind` must be 'polygon' for this problem; got {d.kind!r}")
@@ -336,8 +326,6 @@ def eigen_lshape(p: LShapeEigenParams) -> EigenProblem:
     it, and `problem.reference.sources` names the source of each. The first eigenfunction
     behaves like r^(2/3) at the re-entrant corner, so quasi-uniform P1/P2 converge at order 4/3.
     """
-    from bench.shapes import lshape
-
     d = lshape()
     pi2 = math.pi ** 2
     exact = "exact: square mode sin(m pi x) sin(n pi y) vanishes on the L-shape's boundary"
@@ -353,149 +341,13 @@ def eigen_lshape(p: LShapeEigenParams) -> EigenProblem:
                                    "sources": [known[0][1]] if p.k == 1 else []})
 
 
-# ------------------------------------------------------------------------------------------
-# The computed-reference path
-# ------------------------------------------------------------------------------------------
-
-def richardson(values: np.ndarray, p: int) -> tuple[float, float, float]:
-    """Extrapolate a monotone sequence on meshes halved each level: (limit, estimate, order).
-
-    The observed order q = log2(d1/d2) of the last two differences (clipped to [0.5, 2p], the
-    range of conforming eigenvalue convergence), the limit lambda_L - d2/(2^q - 1). The estimate is
-    the change between this extrapolation and the one from the three levels before, a bound that
-    is conservative whenever the extrapolation converges faster than the raw values.
-    """
-    v = np.asarray(values, dtype=float)
-
-    def extrap(a, b, c):
-        d1, d2 = a - b, b - c
-        if d1 <= 0 or d2 <= 0 or d2 >= d1:
-            return c, float("nan")
-        q = float(np.clip(math.log2(d1 / d2), 0.5, 2 * p))
-        return c - d2 / (2 ** q - 1), q
-
-    e_last, q = extrap(*v[-3:])
-    if len(v) >= 4:
-        e_prev, _ = extrap(*v[-4:-1])
-        est = abs(e_last - e_prev)
-    else:
-        est = abs(v[-1] - v[-2])
-    # never claim more than the raw values' round-off allows
-    est = max(est, 1e-13 * abs(e_last), abs(v[-1] - e_last) * 1e-3)
-    return float(e_last), float(est), q
-
-
-def _mesh_levels(domain, triangles: int, levels: int):
-    """Nested uniform refinements of the polygon's coarse triangulation (solvers.fem.build_mesh);
-    the finest has at least `triangles` triangles, and the coarsest is refined at least once."""
-    from solvers.fem import build_mesh
-
-    T0 = build_mesh(domain, 0).t.shape[1]
-    top = max(levels, int(math.ceil(math.log(max(triangles / T0, 1.0), 4))))
-    return [build_mesh(domain, L) for L in range(top - levels + 1, top + 1)]
-
-
-def computed_reference(domain, recipe: dict, cache_dir: str | Path) -> dict:
-    """Eigenvalues, estimates and finest-level modes of `domain`, from the cache or computed.
-
-    The cache file is named by a hash of the recipe (vertices, degree, levels, size, count) and
-    `REFERENCE_VERSION`; a lock file keeps parallel workers from computing it twice.
-    """
-    key = hashlib.sha256(json.dumps({**recipe, "version": REFERENCE_VERSION}, sort_keys=True).encode()).hexdigest()[:16]
-    cache_dir = Path(cache_dir)
-    cache_dir.mkdir(parents=True, exist_ok=True)
-    path = cache_dir / f"{key}.npz"
-    with open(cache_dir / f"{key}.lock", "w") as lock:
-        fcntl.flock(lock, fcntl.LOCK_EX)
-        try:
-            if path.exists():
-                try:
-                    return _load_reference(path)
-                except (OSError, ValueError, KeyError):
-                    pass  # unreadable cache entry: recompute and overwrite
-            ref = _compute_reference(domain, recipe)
-            fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".npz", dir=cache_dir)
-            os.close(fd)
-            meta = {k: v for k, v in ref.items() if k not in ("mesh_p", "mesh_t", "modes")}
-            np.savez_compressed(tmp, mesh_p=ref["mesh_p"], mesh_t=ref["mesh_t"], modes=ref["modes"],
-                                meta=np.array(json.dumps(meta)))
-            os.chmod(tmp, 0o644)
-            os.replace(tmp, path)
-            ref["cache"] = str(path)
-            return ref
-        finally:
-            fcntl.flock(lock, fcntl.LOCK_UN)
-
-
-def _load_reference(path: Path) -> dict:
-    with np.load(path, allow_pickle=False) as z:
-        meta = json.loads(str(z["meta"]))
-        return {**meta, "mesh_p": z["mesh_p"], "mesh_t": z["mesh_t"], "modes": z["modes"], "cache": str(path)}
-
-
-def _compute_reference(domain, recipe: dict) -> dict:
-    """Run the reference FEM on every level and extrapolate each eigenvalue (progress on stderr)."""
-    import sys
-
-    from tqdm import tqdm
-
-    from solvers.fem import fem_eigen
-
-    order, k = int(recipe["order"]), int(recipe["k"])
-    meshes = _mesh_levels(domain, int(recipe["triangles"]), int(recipe["levels"]))
-    table = []
-    basis = V = None
-    for mesh in tqdm(meshes, desc="eigen reference", file=sys.stderr, disable=not sys.stderr.isatty()):
-        lam, basis, V = fem_eigen(mesh, order, k)
-        table.append(lam)
-    table = np.array(table)                                  # (levels, k)
-    ext = [richardson(table[:, i], order) for i in range(table.shape[1])]
-    angles = domain.interior_angles
-    q_theory = min(2.0 * order, 2 * math.pi / float(angles.max()))
-    mesh = meshes[-1]
-    return {
-        "eigenvalues": [e[0] for e in ext], "estimate": [e[1] for e in ext],
-        "order_obs": [e[2] for e in ext], "order_theory": q_theory,
-        "levels": table.tolist(), "solver": f"fem_p{order} (scikit-fem, ARPACK shift-invert)",
-        "resolutions": [{"triangles": int(m.t.shape[1]), "h": float(_hmax(m))} for m in meshes],
-        "order": order, "mesh_p": mesh.p, "mesh_t": mesh.t, "modes": V,
-    }
-
-
-def _hmax(mesh) -> float:
-    p, t = mesh.p, mesh.t
-    e = np.concatenate([p[:, t[0]] - p[:, t[1]], p[:, t[1]] - p[:, t[2]], p[:, t[2]] - p[:, t[0]]], axis=1)
-    return float(np.sqrt((e ** 2).sum(axis=0)).max())
-
-
-class _ReferenceModes:
-    """Modes of a computed reference: the finest-level FEM functions (solvers.fem.FEMFunction)."""
-
-    def __init__(self, p, t, order, V, n):
-        self.p, self.t, self.order, self.V = np.asarray(p), np.asarray(t), int(order), np.asarray(V)[:, :n]
-        self._fields = None
-
-    def __call__(self, points):
-        if self._fields is None:
-            from skfem import Basis, ElementTriP1, ElementTriP2, MeshTri1
-
-            from solvers.fem import FEMFunction
-
-            basis = Basis(MeshTri1(self.p, self.t), {1: ElementTriP1, 2: ElementTriP2}[self.order]())
-            self._fields = [FEMFunction(basis, self.V[:, j]) for j in range(self.V.shape[1])]
-        p = np.asarray(points, dtype=float)
-        return np.column_stack([f(p) for f in self._fields])
-
-
-def _register():
-    register_problem("eigen_rect", RectEigenParams, eigen_rect,
-                     "Dirichlet eigenvalues of a rectangle, closed form pi^2 (m^2/a^2 + n^2/b^2)")
-    register_problem("eigen_disk", DiskEigenParams, eigen_disk,
-                     "Dirichlet eigenvalues of a disk, j_{m,s}^2/R^2 (scipy.special.jn_zeros)")
-    register_problem("eigen_lshape", LShapeEigenParams, eigen_lshape,
-                     "Dirichlet eigenvalues of the L-shape (Betcke & Trefethen 2005; exact 2pi^2, ...)")
-    register_problem("eigen_polygon", PolygonEigenParams, eigen_polygon,
-                     "Dirichlet eigenvalues of any polygon, reference computed by the harness")
-
-
-_register()
+CATALOGUE = {
+    "eigen_rect": (RectEigenParams, eigen_rect,
+                   "Dirichlet eigenvalues of a rectangle, closed form pi^2 (m^2/a^2 + n^2/b^2)"),
+    "eigen_disk": (DiskEigenParams, eigen_disk,
+                   "Dirichlet eigenvalues of a disk, j_{m,s}^2/R^2 (scipy.special.jn_zeros)"),
+    "eigen_lshape": (LShapeEigenParams, eigen_lshape,
+                     "Dirichlet eigenvalues of the L-shape (Betcke & Trefethen 2005; exact 2pi^2, ...)"),
+    "eigen_polygon": (PolygonEigenParams, eigen_polygon,
+                      "Dirichlet eigenvalues of any polygon, reference computed by the harness"),
+}

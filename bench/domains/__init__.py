@@ -1,0 +1,27 @@
+"""Geometry: one module per domain kind, all listed in DOMAIN_KINDS (config key `kind`)."""
+from __future__ import annotations
+
+from bench.config import ConfigError
+from bench.domains.base import Domain, EvalSet, gauss_legendre_panels
+from bench.domains.polygon import LSHAPE_VERTICES, Polygon, lshape
+from bench.domains.rectangle import Rectangle
+from bench.domains.round import Annulus, Disk, polar
+from bench.domains.triangulation import ear_clip, triangle_rule
+
+__all__ = ["Domain", "EvalSet", "Rectangle", "Disk", "Annulus", "Polygon", "LSHAPE_VERTICES", "lshape",
+           "DOMAIN_KINDS", "make_domain", "gauss_legendre_panels", "polar", "triangle_rule", "ear_clip"]
+
+# kind -> domain class (its dataclass fields are the config keys)
+DOMAIN_KINDS: dict[str, type[Domain]] = {"rectangle": Rectangle, "disk": Disk, "annulus": Annulus,
+                                         "polygon": Polygon}
+
+
+def make_domain(cfg: dict, field: str = "problem.domain") -> Domain:
+    """Build a domain from its config mapping ``{kind: ..., <geometry>}``."""
+    from bench.config import build_params
+
+    cfg = dict(cfg)
+    kind = cfg.pop("kind", "rectangle")
+    if kind not in DOMAIN_KINDS:
+        raise ConfigError(f"`{field}.kind` must be one of {', '.join(sorted(DOMAIN_KINDS))}; got {kind!r}")
+    return build_params(DOMAIN_KINDS[kind], cfg, prefix=field)
