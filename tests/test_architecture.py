@@ -110,3 +110,21 @@ def test_long_modules_say_why():
             if "long because" not in doc.lower():
                 too_long.append(f"{name} ({text.count(chr(10))} lines)")
     assert not too_long, too_long
+
+
+def test_solver_tags_dims_are_checked():
+    """A solver refuses a domain whose dimension is not among its `Tags.dims` (a 3-D unit cube
+    stand-in here: the rectangle with dim = 3 by construction)."""
+    import dataclasses
+
+    from bench.domains import Rectangle
+    from bench.problems import make_problem
+    from solvers import SOLVERS
+
+    @dataclasses.dataclass(frozen=True)
+    class Cube(Rectangle):
+        dim = 3
+
+    problem = dataclasses.replace(make_problem({"name": "sine"}), domain=Cube())
+    ok, reason = SOLVERS["fst5"](n=8).supports(problem)
+    assert not ok and reason == "solver fst5 handles dimensions [2], not 3"
