@@ -11,7 +11,8 @@ import warnings
 from functools import lru_cache
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "STATUSES", "config_hash", "problem_id", "problem_config_hash", "record_path", "write_atomic", "write_record", "read_record",
+__all__ = ["SCHEMA_VERSION", "STATUSES", "config_hash", "problem_id", "problem_config_hash", "resolution_label",
+           "case_key", "record_path", "write_atomic", "write_record", "read_record",
            "iter_records", "load_records", "to_frame", "environment", "RecordWarning"]
 
 SCHEMA_VERSION = 1
@@ -87,6 +88,19 @@ def problem_id(label: str, params: dict, domain: dict | None = None, config: dic
     if hidden:
         out += f" ~{_short_hash(hidden)}"
     return out
+
+
+def resolution_label(resolution: dict, sep: str = ",") -> str:
+    """``n=64``, ``level=3,h=0.1``: a run's resolution knobs in their order (records'
+    ``solver.resolution_label``; reports join them with ``sep=", "`` for reading)."""
+    return sep.join(f"{k}={v}" for k, v in (resolution or {}).items())
+
+
+def case_key(problem: str, solver: str, resolution: str, options: str, seed: int) -> str:
+    """The stable identity of a case across runs and machines:
+    ``<problem id> <solver>[<non-default options>] <resolution label> seed=<seed>``."""
+    name = f"{solver}[{options}]" if options else solver
+    return f"{problem} {name} {resolution or '-'} seed={int(seed)}"
 
 
 def _slug(text: str) -> str:

@@ -17,10 +17,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from bench.baseline import dumps_baseline, read_baseline, summarise
-from bench.check import CheckConfig, compare
+from bench.check import CheckConfig, compare, dumps_baseline, read_baseline, summarise
 from bench.config import ConfigError
-from bench.records import iter_records, write_record
+from bench.records import case_key, iter_records, resolution_label, write_record
 from bench.run import Case, execute, prepare
 from solvers.base import Solution
 from solvers.fast_poisson import FST9
@@ -442,3 +441,15 @@ def test_times_measured_on_a_busy_machine_are_not_compared():
     assert result.notes[0].startswith("time of 1 of 1 cases not compared: other processes kept more than 1 core busy")
     result, v = verdicts(base, cur, runtime="error", busy_limit=None)
     assert v[("sine(k=1,l=1) toy n=8 seed=0", "time")] == "regression" and result.exit_code == 1
+
+
+def test_case_key_is_the_records_identity_and_groups_drop_only_the_seed():
+    from bench import check
+
+    assert check.case_key is case_key        # one definition, in bench.records
+    # the key format stated in bench/check/baseline.py's docstring, with its example
+    assert case_key("peak(alpha=1000.0,xc=0.5,yc=0.5)", "fd5", "n=64", "linear_solver=amg", 0) == \
+        "peak(alpha=1000.0,xc=0.5,yc=0.5) fd5[linear_solver=amg] n=64 seed=0"
+    assert resolution_label({"level": 3, "h": 0.1}) == "level=3,h=0.1"   # knobs in their order, comma-joined
+    entry = {"problem": "sine(k=1,l=1)", "solver": "pinn_x", "options": "", "resolution": "", "seed": 7}
+    assert check.group_key(entry) == "sine(k=1,l=1) pinn_x -"            # no options, no resolution: "-"

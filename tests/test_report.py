@@ -2,7 +2,7 @@
 files, failures counted, and the CI study end to end from the command line.
 
 Every expected number below is derived by hand from the synthetic records written in the test
-(the rule is stated in bench/report.py's module docstring); none is a measured value.
+(the rule is stated in bench/report/rules.py's module docstring); none is a measured value.
 """
 from __future__ import annotations
 
@@ -18,10 +18,11 @@ import pandas as pd
 import pytest
 
 from bench.config import ConfigError, build_params
-from bench.records import SCHEMA_VERSION, write_record
+from bench.records import SCHEMA_VERSION, problem_config_hash, write_record
 from bench.report import (ReportConfig, _load, accuracy_at_budget, best_errors, natural_key, order_fits,
-                          pareto_front, run_points, seed_summary, speedup_table, status_counts,
+                          pareto_front, results_table, run_points, seed_summary, speedup_table, status_counts,
                           time_to_tolerance, upper_median, write_report)
+from bench.report import rules as report_rules
 
 INF = math.inf
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"   # PNG specification (ISO/IEC 15948), file signature
@@ -32,7 +33,7 @@ PNG_MAGIC = b"\x89PNG\r\n\x1a\n"   # PNG specification (ISO/IEC 15948), file sig
 # ------------------------------------------------------------------------------------------------
 def make_record(problem="sine", pparams=None, solver="fd5", family="fd", status="ok", err=None, total=None,
                 seed=0, config=None, history=None, dofs=None, h=None, params=None, kind="poisson",
-                train_time=None, field=None, suite="synthetic", rss=50.0):
+                train_time=None, field=None, suite="synthetic", rss=50.0, domain=None, timing=None):
     pparams = {"k": 1, "l": 1} if pparams is None else pparams
     config = {"name": solver, **(config or {})}
     res = {k: v for k, v in config.items() if k in ("n", "width")}
@@ -48,8 +49,9 @@ def make_record(problem="sine", pparams=None, solver="fd5", family="fd", status=
     rec = {
         "schema_version": SCHEMA_VERSION, "case_id": "x", "config_hash": "x", "created": "2026-12-01T00:00:00",
         "suite": suite,
-        "problem": {"name": problem, "kind": kind, "domain": {"kind": "rectangle"}, "params": pparams,
-                    "source": "synthetic", "label": problem, "id": pid, "config": {"name": problem, **pparams}},
+        "problem": {"name": problem, "kind": kind, "domain": domain or {"kind": "rectangle"}, "params": pparams,
+                    "source": "synthetic", "label": problem, "id": pid,
+                    "config": {"name": problem, **pparams, **({"domain": domain} if domain else {})}},
         "solver": {"name": solver, "family": family, "config": config, "resolution": res,
                    "resolution_label": ",".join(f"{k}={v}" for k, v in res.items()),
                    "deterministic": family != "pinn"},
@@ -64,6 +66,8 @@ def make_record(problem="sine", pparams=None, solver="fd5", family="fd", status=
     }
     if field is not None:
         rec["field"] = field
+    if timing is not None:
+        rec["timing"] = timing
     return rec
 
 
@@ -285,6 +289,95 @@ def test_eigen_records_are_judged_by_the_eigen_metric(tmp_path):
     assert cell(time_to_tolerance(recs, frame, [1e-3]), "fd5", "tolerance", 1e-3)["time_s"] == 0.4
     cfg = build_params(ReportConfig, {"results": [str(tmp_path)], "eigen_metric": "eig_rel_1"})
     assert list(_load(cfg)[1]["error"]) == [1e-3, 2e-4]
+
+
+def test_one_id_with_two_problem_configs_is_two_problems(tmp_path):
+    # the same expression on a disk and on the unit square: one id string, two problems
+    disk = {"kind": "disk", "cx": 0.0, "cy": 0.0, "radius": 1.0}
+    recs = [make_record("expr", {"u": "x*y"}, err=1e-2, total=0.01, config={"n": 16}, dofs=256, h=1 / 16,
+                        domain=disk),
+            make_record("expr", {"u": "x*y"}, err=1e-4, total=0.01, config={"n": 16}, dofs=256, h=1 / 16)]
+    assert recs[0]["problem"]["id"] == recs[1]["problem"]["id"] == "expr(u=x*y)"
+    write_all(tmp_path / "res", recs)
+    cfg = build_params(ReportConfig, {"results": [str(tmp_path / "res")], "name": "t", "formats": ["md", "csv"],
+                                      "figures": {"kinds": []}}, prefix="report")
+    recs, frame = _load(cfg)
+    # the id of each problem: its id string, then " #" and the first 6 digits of its config's hash
+    # (bench.records.to_frame's rule for ids shared by different configs)
+    pid = {r["problem"]["domain"]["kind"]: "expr(u=x*y) #" + problem_config_hash(r["problem"]["config"])[:6]
+           for r in recs}
+    assert pid["disk"] != pid["rectangle"]
+    best = best_errors(recs, frame, cfg).set_index("problem_id")["error"]
+    # each problem keeps its own error (by construction: 1e-2 on the disk, 1e-4 on the square); one
+    # median over both would be a single row holding the upper median 1e-2
+    assert best.to_dict() == {pid["disk"]: 1e-2, pid["rectangle"]: 1e-4}
+    counts = status_counts(frame)
+    assert sorted(counts["problem_id"]) == sorted([pid["disk"], pid["rectangle"], "all"])
+    out, _ = write_report(cfg, tmp_path / "reports")
+    md = (out / "report.md").read_text()
+    assert md.count("## Problem expr(u=x*y) #") == 2
+    assert len(list((out / "csv").glob("time_to_tolerance__*.csv"))) == 2
+
+
+# every timed repeat of a deterministic run (setup + solve, seconds), made up for the test
+REPEATS = [0.010, 0.012, 0.011, 0.013, 0.020]
+TIMING = {"repeats": REPEATS, "min": 0.010, "median": 0.012, "max": 0.020, "statistic": "median"}
+
+
+def timed_records():
+    """fd5 timed by five repeats (median 0.012 s), a learned run timed once, a failed fd5 run."""
+    return [make_record(err=1e-3, total=0.012, config={"n": 32}, dofs=1024, h=1 / 32, timing=TIMING),
+            make_record(solver="pinn_x", family="pinn", err=4e-3, total=3.2, config={"width": 32}, params=1000,
+                        history=hist((1, 1e-2), (3.2, 4e-3)),
+                        timing={"repeats": [3.2], "statistic": "single"}),
+            make_record(status="failed", total=0.5, config={"n": 64})]
+
+
+def test_results_table_holds_repeats_and_spread(tmp_path):
+    write_all(tmp_path / "res", timed_records())
+    cfg = build_params(ReportConfig, {"results": [str(tmp_path / "res")], "name": "t",
+                                      "formats": ["md", "csv", "tex", "html"], "figures": {"kinds": []}},
+                       prefix="report")
+    _, frame = _load(cfg)
+    runs = results_table(frame).set_index(["solver", "status"])
+    fd5 = runs.loc[("fd5", "ok")]
+    assert fd5["t_total"] == 0.012                      # the median repeat (by construction)
+    assert fd5["repeats"] == 5                          # len(REPEATS)
+    assert fd5["t_spread"] == pytest.approx((0.020 - 0.010) / 0.012, rel=1e-12)   # (max - min) / median = 0.8333
+    pinn = runs.loc[("pinn_x", "ok")]
+    assert pinn["repeats"] == 1 and math.isnan(pinn["t_spread"])   # timed once: no spread
+    failed = runs.loc[("fd5", "failed")]
+    assert failed["repeats"] is None and math.isnan(failed["t_spread"])   # no measured time
+    out, _ = write_report(cfg, tmp_path / "reports")
+    csv = pd.read_csv(out / "results.csv").set_index(["solver", "status"])
+    assert csv.loc[("fd5", "ok"), "repeats"] == 5
+    assert csv.loc[("fd5", "ok"), "t_spread"] == pytest.approx(10 / 12, rel=1e-12)
+    assert math.isnan(csv.loc[("fd5", "failed"), "repeats"])
+    lines = [[c.strip() for c in ln.strip("|").split("|")]
+             for ln in (out / "results.md").read_text().splitlines() if ln.startswith("| ")]
+    header, rows = lines[0], lines[2:]           # lines[1] is the |---| rule
+    row = [r for r in rows if r[1] == "fd5" and r[4] == "ok"][0]
+    assert (row[header.index("repeats")], row[header.index("t_spread")]) == ("5", "0.833")   # 10/12 to 3 digits
+    [(ncol, theader, body)] = parse_tabulars((out / "results.tex").read_text())
+    trow = [r for r in body if r[1] == "fd5" and r[4] == "ok"][0]
+    assert (trow[theader.index("repeats")], trow[theader.index("t\\_spread")]) == ("5", "0.833")
+    page = (out / "results.html").read_text()
+    assert "<th>repeats</th><th>t_spread</th>" in page and "<td>5</td><td>0.833</td>" in page
+
+
+def test_rules_text_names_the_timing_statistic(tmp_path):
+    doc = " ".join(report_rules.__doc__.split())
+    assert "a warm-up, then N timed repeats" in doc and "its time is the median repeat" in doc and "t_spread" in doc
+    write_all(tmp_path / "res", timed_records())
+    cfg = build_params(ReportConfig, {"results": [str(tmp_path / "res")], "name": "t", "formats": ["md", "html"],
+                                      "figures": {"kinds": []}}, prefix="report")
+    out, _ = write_report(cfg, tmp_path / "reports")
+    # the only repeated run has len(REPEATS) = 5 repeats
+    said = "the median of N timed repeats after a warm-up (5 repeats in these runs)"
+    md = (out / "report.md").read_text()
+    rules = md.split("## How to read this report", 1)[1].split("\n## ", 1)[0]
+    assert said in rules
+    assert said in (out / "report.html").read_text()
 
 
 # ------------------------------------------------------------------------------------------------

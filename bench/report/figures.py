@@ -16,10 +16,14 @@ from pathlib import Path
 
 import numpy as np
 
+from bench.report.frame import _finite, _metric_name, _slug, metric_key, natural_key
+from bench.report.options import FAIL_STATUSES, FAMILY_ORDER, _is_learned
+from bench.report.rules import best_errors, order_fits, pareto_front, run_points
+
 __all__ = ["Figure", "make_figures", "family_colours"]
 
+
 MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "h")
-FAMILY_ORDER = ("fd", "spectral", "fem", "pinn")    # fixed colours across reports
 TIME_LABEL = "method time (s): setup + solve, or setup + training"
 LEARNED_TIME_LABEL = "method time (s): setup + training"
 FIELD_CMAP = "RdBu_r"
@@ -87,8 +91,6 @@ def _save(fig, folder: Path, key: str, cfg) -> dict:
 
 def _error_label(cfg, frame=None, pid=None) -> str:
     """Axis label of the error, with its unit; eigenvalue problems use the eigen metric."""
-    from bench.report import _metric_name
-
     if frame is not None and pid is not None and cfg.eigen_metric:
         kinds = set(frame.loc[frame["problem_id"] == pid, "kind"])
         if kinds == {"eigen"}:
@@ -157,13 +159,10 @@ def _loglog(ax):
         axis.set_minor_formatter(NullFormatter())
 
 
-# ------------------------------------------------------------------------------------------------
 def fig_pareto(pid, frame, pts, cfg, folder) -> Figure | None:
     """Error against method time, every run's final point (and training checkpoints, faint), each
     family's Pareto front as a staircase."""
     import matplotlib.pyplot as plt
-
-    from bench.report import FAIL_STATUSES, pareto_front
 
     g = frame[frame["problem_id"] == pid]
     p = pts[pts["problem_id"] == pid]
@@ -206,8 +205,6 @@ def fig_order(pid, frame, fits, cfg, folder) -> Figure | None:
     """Error against dofs (classical) or parameters (learned), with the fitted slopes."""
     import matplotlib.pyplot as plt
 
-    from bench.report import _finite, _is_learned
-
     g = frame[(frame["problem_id"] == pid) & (frame["status"] == "ok") & frame["error"].map(_finite)]
     if g.empty:
         return None
@@ -247,8 +244,6 @@ def fig_training(pid, frame, pts, recs, cfg, folder) -> Figure | None:
     the time at which a classical run reached the same error."""
     import matplotlib.pyplot as plt
     import seaborn as sns
-
-    from bench.report import _is_learned, metric_key, pareto_front
 
     g = frame[(frame["problem_id"] == pid) & frame["family"].map(_is_learned)]
     curves = []
@@ -320,7 +315,8 @@ def _field_records(recs, frame, cfg):
         if not isinstance(f, dict) or not f.get("error"):
             continue
         r = recs[i]
-        if o.problem is not None and o.problem not in (r["problem"].get("label"), r["problem"].get("id")):
+        if o.problem is not None and o.problem not in (r["problem"].get("label"), r["problem"].get("id"),
+                                                       frame.at[i, "problem_id"]):
             continue
         if o.solver is not None and r["solver"].get("name") != o.solver:
             continue
@@ -370,12 +366,12 @@ def fig_field(recs, frame, cfg, folder) -> Figure | None:
         r = recs[i]
         err = frame.at[i, "error"]
         ax.set_title(f"{r['solver']['name']} {r['solver'].get('resolution_label', '')}\n"
-                     f"{r['problem'].get('id')}" + (f", {cfg.metric} {err:.2e}" if np.isfinite(err) else ""),
+                     f"{frame.at[i, 'problem_id']}" + (f", {cfg.metric} {err:.2e}" if np.isfinite(err) else ""),
                      fontsize="small")
         cb = fig.colorbar(mesh, ax=ax, shrink=0.85)
         cb.set_label("error $u_h - u$ (units of u)")
         cb.formatter.set_powerlimits((-2, 3))
-    problems = {recs[i]["problem"].get("id") for i in chosen}
+    problems = {frame.at[i, "problem_id"] for i in chosen}   # the report's id: distinct configs stay apart
     pid = next(iter(problems)) if len(problems) == 1 else None
     key = "error_field" + (f"__{_slug(pid)}" if pid else "")
     return Figure(key, "Pointwise error field" + (f": {pid}" if pid else ""),
@@ -390,8 +386,6 @@ def fig_overview(recs, frame, pts, cfg, folder) -> Figure | None:
     """Best error of each method on each problem, problems in natural order (frequency or
     sharpness growing to the right)."""
     import matplotlib.pyplot as plt
-
-    from bench.report import _is_learned, best_errors, natural_key
 
     best = best_errors(recs, frame, cfg, points=pts)
     problems = sorted(best["problem_id"].unique(), key=natural_key)
@@ -438,12 +432,6 @@ def fig_overview(recs, frame, pts, cfg, folder) -> Figure | None:
                   _save(fig, folder, key, cfg), None)
 
 
-def _slug(text):
-    from bench.report import _slug as s
-
-    return s(text)
-
-
 def make_figures(recs, frame, cfg, folder: Path) -> list[Figure]:
     """Every requested figure for the records; progress on stderr when it is a terminal."""
     import matplotlib
@@ -451,8 +439,6 @@ def make_figures(recs, frame, cfg, folder: Path) -> list[Figure]:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
     from tqdm import tqdm
-
-    from bench.report import natural_key, order_fits, run_points
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -478,3 +464,4 @@ def make_figures(recs, frame, cfg, folder: Path) -> list[Figure]:
             if f is not None:
                 out.append(f)
     return out
+

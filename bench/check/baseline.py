@@ -1,7 +1,7 @@
 """Baselines: the reviewed, committed summary of a suite's records that `lapbench check` compares with.
 
 A baseline file (``results/baseline/<suite>.json``) holds one *entry* per case, keyed by a
-stable case key built from what the case is, never from where or when it ran::
+stable case key (`bench.records.case_key`) built from what the case is, never from where or when it ran::
 
     <problem id> <solver>[<non-default options>] <resolution> seed=<seed>
     e.g.  "peak(alpha=1000.0,xc=0.5,yc=0.5) fd5[linear_solver=amg] n=64 seed=0"
@@ -22,6 +22,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 from bench.config import ConfigError
+from bench.records import case_key, resolution_label
 
 __all__ = ["BASELINE_FORMAT", "BASELINE_SCHEMA_VERSION", "case_key", "group_key", "solver_options",
            "entry_from_record", "key_of_prepared", "summarise", "dumps_baseline", "write_baseline",
@@ -37,7 +38,6 @@ _ENTRY_FIELDS = {"problem": str, "solver": str, "resolution": str, "options": st
                  "deterministic": bool, "status": str, "errors": dict}
 
 
-# -- case keys -------------------------------------------------------------------------------------
 def _flatten(d: dict, prefix: str = "") -> dict:
     out = {}
     for k, v in d.items():
@@ -103,16 +103,10 @@ def solver_options(solver_name: str, config: dict, resolution: dict) -> str:
     return ",".join(parts)
 
 
-def case_key(problem: str, solver: str, resolution: str, options: str, seed: int) -> str:
-    """The stable identity of a case across runs and machines."""
-    name = f"{solver}[{options}]" if options else solver
-    return f"{problem} {name} {resolution or '-'} seed={int(seed)}"
-
-
 def group_key(entry: dict) -> str:
     """The case key without the seed: the seeds of a stochastic method form one group."""
-    name = f"{entry['solver']}[{entry['options']}]" if entry.get("options") else entry["solver"]
-    return f"{entry['problem']} {name} {entry.get('resolution') or '-'}"
+    key = case_key(entry["problem"], entry["solver"], entry.get("resolution") or "", entry.get("options") or "", 0)
+    return key.rsplit(" seed=", 1)[0]
 
 
 def key_of_prepared(prep) -> str:
@@ -120,12 +114,10 @@ def key_of_prepared(prep) -> str:
     from bench.run import problem_key
 
     res = prep.solver.resolution()
-    return case_key(problem_key(prep), prep.solver.name,
-                    ",".join(f"{k}={v}" for k, v in res.items()),
+    return case_key(problem_key(prep), prep.solver.name, resolution_label(res),
                     solver_options(prep.solver.name, prep.case.solver, res), prep.case.seed)
 
 
-# -- entries -----------------------------------------------------------------------------------------
 def _round(v, digits: int):
     if v is None or isinstance(v, bool) or not isinstance(v, (int, float)):
         return None
@@ -154,7 +146,7 @@ def entry_from_record(rec: dict) -> tuple[str, dict]:
     entry = {
         "problem": rec["problem"].get("id") or rec["problem"].get("label") or rec["problem"].get("name"),
         "solver": solver.get("name", ""),
-        "resolution": solver.get("resolution_label") or ",".join(f"{k}={v}" for k, v in res.items()),
+        "resolution": solver.get("resolution_label") or resolution_label(res),
         "options": options,
         "seed": int(rec.get("seed") or 0),
         "family": solver.get("family") or "",
@@ -228,7 +220,6 @@ def summarise(records: list[dict], suite: str, command: str | None = None) -> di
             "provenance": prov, "cases": dict(sorted(cases.items()))}
 
 
-# -- the file ------------------------------------------------------------------------------------------
 def _json_safe(obj):
     """Non-finite floats as strings ("nan", "inf"): strict JSON readers refuse NaN literals."""
     if isinstance(obj, float) and not math.isfinite(obj):
@@ -325,3 +316,4 @@ def read_baseline(path: str | Path, suite: str | None = None) -> dict:
         except ValueError as exc:
             raise _bad(path, f"case {key!r}: {exc.args[0]!r} is not a number") from None
     return doc
+
