@@ -20,6 +20,7 @@ import numpy as np
 from bench.config import ConfigError, build_params, positive
 from bench.isolate import cpu_times, rss_mb, run_isolated
 from bench.records import (SCHEMA_VERSION, config_hash, environment, problem_config_hash, problem_id, read_record,
+                           resolution_label,
                            record_path, write_record)
 
 __all__ = ["Case", "Prepared", "BudgetConfig", "prepare", "execute", "run_case", "make_solver",
@@ -455,7 +456,7 @@ def _build_record(prep: Prepared, child: dict, threads: int, cores: int, started
                     "config": case.problem, "config_hash": problem_config_hash(case.problem)},
         "solver": {"name": solver.name, "family": solver.family, "config": case.solver,
                    "resolution": resolution,
-                   "resolution_label": ",".join(f"{k}={v}" for k, v in resolution.items()),
+                   "resolution_label": resolution_label(resolution),
                    "deterministic": solver.tags.deterministic,
                    **getattr(solver, "provenance", lambda: {})()},
         "seed": case.seed,

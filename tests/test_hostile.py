@@ -30,7 +30,11 @@ _DANGEROUS = ("os.system", "os.exec", "os.posix_spawn", "os.spawn", "os.fork", "
               "os.chmod", "os.kill", "webbrowser.", "pty.spawn")
 
 
-_SYMPY_CODEGEN = os.path.join("sympy", "polys", "monomials.py")
+_SYMPY_CODEGEN = (os.path.join("sympy", "polys", "monomials.py"),
+                  # mpmath builds its hypergeometric series summators from fixed templates, keyed by
+                  # parameter types (make_hyp_summator), the first time sympy evaluates e.g. erf of a
+                  # complex constant: no user text reaches that code
+                  os.path.join("mpmath", "libmp", "libhyper.py"))
 
 
 def _importing() -> bool:
@@ -52,7 +56,7 @@ def _audit(event, args):
         # Two sources of such code carry no user text and are allowed: sympy's polynomial rings
         # generate their monomial arithmetic from fixed templates (sympy/polys/monomials.py), and
         # sympy modules imported lazily (e.g. sympy.physics.units, on first simplify) sympify
-        # their own constant strings at import time.
+        # their own constant strings at import time; mpmath generates its series kernels likewise.
         caller = sys._getframe(1).f_code.co_filename
         if getattr(code, "co_filename", "<?>").startswith("<") and not caller.endswith(_SYMPY_CODEGEN) \
                 and not _importing():
