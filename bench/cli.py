@@ -288,9 +288,10 @@ def cmd_report(argv: list[str]) -> int:
 
 
 # ------------------------------------------------------------------------------------------------
-# check, baseline, conform, tones (their stages: bench/check.py, bench/plugins.py, bench/tones.py)
+# check, baseline, conform, tones (their stages: bench/check/, bench/conformance.py, bench/tones.py)
 # ------------------------------------------------------------------------------------------------
-def cmd_check(argv: list[str]) -> int:
+def _check_stage(argv: list[str], run) -> int:
+    """`check` and `baseline`: plan the suite's cases, run them first when asked, then `run(plan)`."""
     from bench import check
 
     if any(a in ("-h", "--help") for a in argv):
@@ -298,18 +299,19 @@ def cmd_check(argv: list[str]) -> int:
         return 0
     plan = check.plan_check(argv)
     _run_first(plan)
-    return check.run_check(plan)
+    return run(plan)
+
+
+def cmd_check(argv: list[str]) -> int:
+    from bench import check
+
+    return _check_stage(argv, check.run_check)
 
 
 def cmd_baseline(argv: list[str]) -> int:
     from bench import check
 
-    if any(a in ("-h", "--help") for a in argv):
-        print(check.CHECK_USAGE)
-        return 0
-    plan = check.plan_check(argv)
-    _run_first(plan)
-    return check.run_baseline(plan)
+    return _check_stage(argv, check.run_baseline)
 
 
 def _run_first(plan) -> None:

@@ -44,11 +44,9 @@ def _fmt_time(t: float) -> str:
 
 
 class Progress:
-    """One line per case; on a terminal also a progress bar kept below the lines.
-
-    The bar's rate is cases per minute when cases are slow (seconds each) and per second
-    otherwise (tqdm's own choice of unit scale would show 'it/s' of forks).
-    """
+    """One line per case; on a terminal also a progress bar kept below the lines, showing done /
+    total with elapsed and remaining time (no per-second rate: cases differ by orders of
+    magnitude in cost, so a rate says little)."""
 
     def __init__(self, total: int | None, stream=None):
         self.total = total
