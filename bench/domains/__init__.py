@@ -3,17 +3,18 @@ from __future__ import annotations
 
 from bench.config import ConfigError
 from bench.domains.base import Domain, EvalSet, gauss_legendre_panels
+from bench.domains.mask import Mask
 from bench.domains.polygon import LSHAPE_VERTICES, Polygon, lshape
 from bench.domains.rectangle import Rectangle
 from bench.domains.round import Annulus, Disk, polar
 from bench.domains.triangulation import ear_clip, triangle_rule
 
-__all__ = ["Domain", "EvalSet", "Rectangle", "Disk", "Annulus", "Polygon", "LSHAPE_VERTICES", "lshape",
+__all__ = ["Domain", "EvalSet", "Mask", "Rectangle", "Disk", "Annulus", "Polygon", "LSHAPE_VERTICES", "lshape",
            "DOMAIN_KINDS", "make_domain", "gauss_legendre_panels", "polar", "triangle_rule", "ear_clip"]
 
 # kind -> domain class (its dataclass fields are the config keys)
 DOMAIN_KINDS: dict[str, type[Domain]] = {"rectangle": Rectangle, "disk": Disk, "annulus": Annulus,
-                                         "polygon": Polygon}
+                                         "polygon": Polygon, "mask": Mask}
 
 
 def make_domain(cfg: dict, field: str = "problem.domain") -> Domain:
