@@ -214,10 +214,20 @@ def monitor_fn(problem, eval_set):
     return monitor
 
 
-# problem kind -> measure(problem, solution, eval_set) -> metrics dict
-MEASURES = {"laplace": solution_errors, "poisson": solution_errors, "eigen": eigen_errors}
+def image_errors(problem, solution, eval_set) -> dict:
+    """Image problems: `solution_errors` against the discrete reference, plus the PSNRs of the
+    hole pixels (`bench.image_metrics`)."""
+    from bench.image_metrics import image_measures
+
+    out = solution_errors(problem, solution, eval_set)
+    out.update(image_measures(problem, checked_values(solution.evaluate, problem.hole_points)))
+    return out
+
+
+# problem kind (or a problem's own `measure_kind`) -> measure(problem, solution, eval_set) -> metrics
+MEASURES = {"laplace": solution_errors, "poisson": solution_errors, "eigen": eigen_errors, "image": image_errors}
 
 
 def measure(problem, solution, eval_set) -> dict:
     """The metrics of `solution` on `problem` (the measure of its kind)."""
-    return MEASURES[problem.kind](problem, solution, eval_set)
+    return MEASURES[getattr(problem, "measure_kind", problem.kind)](problem, solution, eval_set)

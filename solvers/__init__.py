@@ -4,6 +4,7 @@ from solvers.fast_poisson import FST5, FST9
 from solvers.disk_spectral import DiskChebyshev
 from solvers.fd import FD5, FD9
 from solvers.fem import FEMP1, FEMP2
+from solvers.pixel import Pixel5
 from solvers.pinn import PINNFourier, PINNHard, PINNRar, PINNRitz, PINNSoft
 from solvers.pinn.eigen import PINNEigen
 from solvers.spectral import Chebyshev
@@ -18,6 +19,7 @@ SOLVERS: dict[str, type[Solver]] = {
     "disk_cheb": DiskChebyshev,
     "fem_p1": FEMP1,
     "fem_p2": FEMP2,
+    "pixel5": Pixel5,
     "pinn_soft": PINNSoft,
     "pinn_hard": PINNHard,
     "pinn_ritz": PINNRitz,
