@@ -1,6 +1,7 @@
 """Finite elements through scikit-fem: Lagrange P1 and P2 on triangle meshes built per domain.
 
-Meshes: polygons (and rectangles) start from the ear-clipped, Lawson-flipped coarse
+Meshes: pixel masks start from their pixels split into two triangles each; polygons (and
+rectangles) start from the ear-clipped, Lawson-flipped coarse
 triangulation of `bench.domains.polygon` and are refined uniformly (``level`` times), so meshes of
 successive levels are nested. Disks start from scikit-fem's four-triangle disk and move new
 boundary nodes onto the circle after each refinement; annuli use a polar mesh with nodes on both
@@ -28,7 +29,7 @@ __all__ = ["FEMP1", "FEMP2", "build_mesh", "FEMFunction", "fem_eigen", "fem_eige
 logging.getLogger("skfem").setLevel(logging.WARNING)
 
 MAX_LEVEL = 16   # 4^16 times the coarse elements: far beyond any machine; memory estimate refuses earlier
-FEM_DOMAINS = frozenset({"rectangle", "polygon", "disk", "annulus"})
+FEM_DOMAINS = frozenset({"rectangle", "polygon", "disk", "annulus", "mask"})
 
 
 @dataclasses.dataclass
@@ -70,7 +71,28 @@ def _coarse(domain):
         return p, t
     if isinstance(domain, Annulus):
         return None, None
+    if domain.kind == "mask":
+        return _pixel_triangles(domain)
     raise ConfigError(f"`problem.domain.kind` {domain.kind!r} has no finite-element mesh")
+
+
+def _pixel_triangles(mask):
+    """Coarse mesh of a pixel mask: every True pixel split into two triangles by the diagonal
+    from its lower-left to its upper-right corner (nodes = the pixels' corners). On such a
+    uniform right-triangle mesh the P1 stiffness matrix is the 5-point stencil [common practice]."""
+    I, J = np.nonzero(mask.cells)
+    nx, ny = mask.cells.shape
+    used = np.zeros((nx + 1, ny + 1), dtype=bool)
+    for di in (0, 1):
+        for dj in (0, 1):
+            used[I + di, J + dj] = True
+    index = -np.ones(used.shape, dtype=np.int64)
+    ui, uj = np.nonzero(used)
+    index[ui, uj] = np.arange(len(ui))
+    p = np.vstack([mask.x0 + mask.h * ui, mask.y0 + mask.h * uj]).astype(float)
+    a, b, c, d = index[I, J], index[I + 1, J], index[I + 1, J + 1], index[I, J + 1]
+    t = np.hstack([np.vstack([a, b, c]), np.vstack([a, c, d])])
+    return p, t
 
 
 def _annulus_mesh(domain, level: int):

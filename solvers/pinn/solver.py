@@ -103,7 +103,7 @@ class PINN(Solver):
     Params = PINNParams
     # deterministic: same seed, same thread count -> same result to rounding (see class docstring)
     tags = Tags(kinds=frozenset({"laplace", "poisson"}),
-                domains=frozenset({"rectangle", "disk", "annulus", "polygon"}),
+                domains=frozenset({"rectangle", "disk", "annulus", "polygon", "mask"}),
                 deterministic=True)
 
     @classmethod
