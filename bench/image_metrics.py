@@ -30,7 +30,7 @@ def psnr(estimate, truth, data_range: float = DATA_RANGE) -> float:
 def image_measures(problem, values: np.ndarray) -> dict:
     """PSNRs of the method's values at the hole pixels, and the values themselves for figures.
 
-    ``image``: {"hole_values": [...]} rounded to 6 decimals (the report's reconstructed and
+    ``image``: {"hole_values": [...]} rounded to 10 decimals (the report's reconstructed and
     error images; the rest of the image is the problem's own data).
     """
     ref = np.asarray(problem.reference_values, dtype=float)
@@ -38,5 +38,5 @@ def image_measures(problem, values: np.ndarray) -> dict:
     if problem.truth is not None:
         out["psnr_original"] = psnr(values, problem.truth)
         out["psnr_reference_vs_original"] = psnr(ref, problem.truth)
-    out["image"] = {"hole_values": [round(float(v), 6) for v in values]}
+    out["image"] = {"hole_values": [round(float(v), 10) for v in values]}
     return out

@@ -19,6 +19,7 @@ import numpy as np
 from bench.report.frame import _finite, _metric_name, _slug, metric_key, natural_key
 from bench.report.options import FAIL_STATUSES, FAMILY_ORDER, _is_learned
 from bench.report.rules import best_errors, order_fits, pareto_front, run_points
+from bench.report.images import fig_images
 
 __all__ = ["Figure", "make_figures", "family_colours"]
 
@@ -453,6 +454,8 @@ def make_figures(recs, frame, cfg, folder: Path) -> list[Figure]:
             jobs.append(lambda pid=pid: fig_order(pid, frame, fits, cfg, folder))
         if "training" in kinds:
             jobs.append(lambda pid=pid: fig_training(pid, frame, pts, recs, cfg, folder))
+        if "images" in kinds:   # imaging problems: reconstructed and error images (bench/report/images.py)
+            jobs.append(lambda pid=pid: fig_images(pid, recs, frame, cfg, folder, Figure, _save))
     if "overview" in kinds:
         jobs.append(lambda: fig_overview(recs, frame, pts, cfg, folder))
     if "field" in kinds:
