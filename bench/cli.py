@@ -261,8 +261,11 @@ def cmd_list(argv: list[str]) -> int:
                 cells = [("y" if solvers[n].supports(p)[0] else ".").center(len(n)) for n in cols]
                 print(f"  {pname:<16}" + " ".join(cells).rstrip())
         rest = [n for n in names if not any(solvers[n].supports(p)[0] for p in rows.values())]
-        if rest:
-            print(f"  {'':<16}(no problem of this kind runs on: {', '.join(rest)})")
+        if rest:   # wrapped at 100 columns
+            import textwrap
+
+            print(textwrap.fill(f"(no problem of this kind runs on: {', '.join(rest)})", 100,
+                                initial_indent=" " * 18, subsequent_indent=" " * 19))
     return 0
 
 
