@@ -5,7 +5,9 @@ import numpy as np
 import scipy.sparse as sps
 
 __all__ = ["TensorGrid", "second_difference", "apply_stencil", "discrete_rhs", "interior_matrix",
-           "LocalLagrange"]
+           "LocalLagrange", "MAX_GRID_DIM", "box_axes", "box_boundary_values", "box_operator",
+           "box_fold_boundary", "box_rhs", "TensorLagrange", "default_n", "box_solution",
+           "refuse_memory", "MAX_REPORTED_NODES"]
 
 
 class TensorGrid:
@@ -160,3 +162,212 @@ class LocalLagrange:
             for b in range(self.k + 1):
                 out += wx[:, a] * wy[:, b] * self.U[ix + a, iy + b]
         return out
+
+
+# -- boxes in d dimensions -----------------------------------------------------------------------
+# Dimensions the d-dimensional grid methods accept (the Box domain's own limit is checked there).
+MAX_GRID_DIM = 32
+# A grid method's `n` left at its 2-D default on a d-box means `default_n(d)`: the finest power
+# of 2 with at most DEFAULT_UNKNOWNS interior unknowns (from 64: 64 for d <= 3, 32 for d = 4,
+# 16 for d = 5, 8 for d = 6, 7, 4 for d = 8..13), so that a default case takes about a second.
+DEFAULT_UNKNOWNS = 1 << 21
+
+
+def default_n(dim: int, cap: int = 64) -> int:
+    """Intervals per side on a d-box when `n` is left at its default `cap`: halved from `cap` while
+    the interior has more than DEFAULT_UNKNOWNS unknowns."""
+    n = cap
+    while n > 2 and (n - 1) ** dim > DEFAULT_UNKNOWNS:
+        n //= 2
+    return n
+
+
+
+def box_axes(bounds: np.ndarray, ns) -> list[np.ndarray]:
+    """Uniform node coordinates per axis of the box `bounds` (d, 2), ``ns[i]`` intervals on axis i."""
+    b = np.asarray(bounds, dtype=float).reshape(-1, 2)
+    return [np.linspace(lo, hi, int(n) + 1) for (lo, hi), n in zip(b, ns)]
+
+
+def box_boundary_values(axes: list[np.ndarray], g) -> np.ndarray:
+    """Full tensor grid on `axes` holding the Dirichlet data g on the boundary, zero inside.
+
+    g is evaluated at boundary nodes only, each exactly once: the face normal to axis i takes
+    the interior nodes of the axes before i and all nodes of the axes after it.
+    """
+    from bench.fields import on_grid
+
+    shape = tuple(len(a) for a in axes)
+    U = np.zeros(shape)
+    if g is None:
+        return U
+    d = len(axes)
+    for i in range(d):
+        for side in (0, -1):
+            face = [a[1:-1] if j < i else (a[side:][:1] if j == i else a) for j, a in enumerate(axes)]
+            if any(len(a) == 0 for a in face):
+                continue
+            idx = tuple(slice(1, -1) if j < i else (side if j == i else slice(None)) for j in range(d))
+            U[idx] = on_grid(g, *face).reshape([len(a) for j, a in enumerate(face) if j != i])
+    return U
+
+
+def _along(A: np.ndarray, axis: int, centre: float, side: float) -> np.ndarray:
+    """centre * A[1:-1] + side * (A[2:] + A[:-2]) along `axis` (the axis shrinks by two)."""
+    def cut(a, b):
+        s = [slice(None)] * A.ndim
+        s[axis] = slice(a, b)
+        return A[tuple(s)]
+
+    out = cut(2, None) + cut(None, -2)
+    out *= side
+    if centre:
+        out += centre * cut(1, -1)
+    return out
+
+
+def box_operator(U: np.ndarray, hs, compact: bool) -> np.ndarray:
+    """Interior values of the d-dimensional grid operator A applied to a full grid U.
+
+    5-point type (2d + 1 points): A = -sum_i D_i with D_i the second difference on axis i.
+    Compact (3^d points): A = -sum_i D_i prod_{j != i} P_j with P_j = 1 + h_j^2 D_j / 12, the
+    fourth-order Pade (Numerov) approximation P_i^-1 D_i of d^2/dx_i^2 in every direction
+    (Collatz 1960; Lele, J. Comput. Phys. 103, 1992) cleared of its denominators by prod_j P_j;
+    in 2-D it is the Mehrstellen 9-point operator of `apply_stencil`.
+    """
+    d = U.ndim
+    total = None
+    for i in range(d):
+        T = _along(U, i, -2.0 / hs[i] ** 2, 1.0 / hs[i] ** 2)
+        for j in range(d):
+            if j == i:
+                continue
+            if compact:
+                T = _along(T, j, 10.0 / 12.0, 1.0 / 12.0)
+            else:
+                T = T[tuple(slice(1, -1) if k == j else slice(None) for k in range(d))]
+        total = T if total is None else total + T
+    return -total
+
+
+def box_fold_boundary(rhs: np.ndarray, Ub: np.ndarray, hs, compact: bool) -> None:
+    """rhs -= A(Ub) where Ub is zero inside: only the interior nodes next to a face see it, so A
+    is applied on the 3-node-wide slabs along each face (each slab gives the exact value of
+    A(Ub) on its interior layer; overlapping layers get the same value twice)."""
+    d = Ub.ndim
+    corr = np.zeros(rhs.shape)
+    for k in range(d):
+        for side in (0, -1):
+            slab = tuple(slice(0, 3) if (j == k and side == 0) else (slice(-3, None) if j == k else slice(None))
+                         for j in range(d))
+            val = box_operator(Ub[slab], hs, compact)
+            layer = tuple(side if j == k else slice(None) for j in range(d))
+            corr[layer] = val[tuple(0 if j == k else slice(None) for j in range(d))]
+    rhs -= corr
+
+
+def box_rhs(axes: list[np.ndarray], f, g, compact: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Right-hand side on the interior nodes of a d-box grid, Dirichlet data folded in, and the
+    full grid of boundary values.
+
+    5-point type: f at the interior nodes. Compact: (1 + sum_j h_j^2 D_j / 12) f, the correction
+    that makes the compact operator fourth order (in 2-D the Mehrstellen right-hand side of
+    `discrete_rhs`); it uses f on the boundary nodes too.
+    """
+    from bench.fields import on_grid
+
+    hs = [a[1] - a[0] for a in axes]
+    d = len(axes)
+    inner = tuple(len(a) - 2 for a in axes)
+    if f is None:
+        rhs = np.zeros(inner)
+    elif compact:
+        F = on_grid(f, *axes)
+        core = F[(slice(1, -1),) * d]
+        rhs = (1.0 - d / 6.0) * core
+        for j in range(d):
+            rest = tuple(slice(1, -1) for _ in range(d))
+            plus = rest[:j] + (slice(2, None),) + rest[j + 1:]
+            minus = rest[:j] + (slice(None, -2),) + rest[j + 1:]
+            rhs += (F[plus] + F[minus]) / 12.0
+    else:
+        rhs = on_grid(f, *[a[1:-1] for a in axes])
+        rhs = np.array(rhs, dtype=float) if not rhs.flags.writeable else rhs
+    Ub = box_boundary_values(axes, g)
+    box_fold_boundary(rhs, Ub, hs, compact)
+    return rhs, Ub
+
+
+class TensorLagrange:
+    """Local Lagrange interpolation of degree k on a d-dimensional tensor grid (uniform axes).
+
+    Degree 1 is multilinear (2^d values per point, error O(h^2)); degree 3 uses 4^d values
+    (error O(h^4)); an axis with fewer than k intervals uses its own number of intervals. Points
+    are handled in chunks so that the gathered stencils stay below a few tens of MiB.
+    """
+
+    def __init__(self, axes: list[np.ndarray], U: np.ndarray, degree: int = 1):
+        self.axes = [np.asarray(a, dtype=float) for a in axes]
+        self.U = U
+        self.ks = [min(int(degree), len(a) - 1) for a in self.axes]
+
+    def _axis(self, coord, a, k):
+        n = len(a) - 1
+        h = (a[-1] - a[0]) / n
+        s = (coord - a[0]) / h
+        first = np.clip(np.floor(s).astype(np.int64) - (k - 1) // 2, 0, n - k)
+        t = s - first
+        W = np.ones((len(t), k + 1))
+        for j in range(k + 1):
+            for m in range(k + 1):
+                if m != j:
+                    W[:, j] *= (t - m) / (j - m)
+        return first, W
+
+    def __call__(self, points: np.ndarray) -> np.ndarray:
+        p = np.asarray(points, dtype=float)
+        size = int(np.prod([k + 1 for k in self.ks]))
+        chunk = max(1, (1 << 21) // size)
+        flatU = self.U.ravel()
+        out = np.empty(len(p))
+        for c0 in range(0, len(p), chunk):
+            q = p[c0:c0 + chunk]
+            flat = np.zeros((len(q), 1), dtype=np.int64)
+            W = np.ones((len(q), 1))
+            for i, (a, k) in enumerate(zip(self.axes, self.ks)):
+                first, w = self._axis(q[:, i], a, k)
+                idx = first[:, None] + np.arange(k + 1)[None, :]
+                flat = (flat[:, :, None] * len(a) + idx[:, None, :]).reshape(len(q), -1)
+                W = (W[:, :, None] * w[:, None, :]).reshape(len(q), -1)
+            out[c0:c0 + chunk] = np.einsum("pk,pk->p", flatU[flat], W)
+        return out
+
+
+# At most this many of a d-box grid's interior nodes are handed to the harness as
+# `Solution.nodes` (evenly strided): the nodal error of a 255^3 grid would otherwise cost the
+# exact solution at 16 M points and 400 MB of coordinates.
+MAX_REPORTED_NODES = 1 << 16
+
+
+def box_solution(axes: list[np.ndarray], U: np.ndarray, degree: int, info: dict):
+    """Solution on a d-box tensor grid: `TensorLagrange` interpolant of degree `degree`, and up to
+    MAX_REPORTED_NODES interior nodes (evenly strided) with their values as the nodal set."""
+    from solvers.base import Solution
+
+    inner = U[(slice(1, -1),) * U.ndim]
+    total = inner.size
+    pick = np.unique(np.linspace(0, total - 1, min(total, MAX_REPORTED_NODES)).astype(np.int64))
+    idx = np.unravel_index(pick, inner.shape)
+    nodes = np.column_stack([a[1:-1][i] for a, i in zip(axes, idx)]) if total else None
+    return Solution(evaluate=TensorLagrange(axes, U, degree), nodes=nodes,
+                    values=inner.ravel()[pick] if total else None,
+                    info={**info, "nodes_reported": int(len(pick))})
+
+
+def refuse_memory(name: str, need_mb: float, budget) -> None:
+    """Stop before allocating when a d-box case cannot fit `budget.memory_limit_mb` (the harness's
+    up-front check knows only the 2-D size)."""
+    limit = getattr(budget, "memory_limit_mb", None)
+    if limit is not None and need_mb > limit:
+        raise MemoryError(f"{name} needs about {need_mb:.0f} MiB for this grid, above "
+                          f"`budget.memory_limit_mb` = {limit:g} MiB; lower `solver.n`")
