@@ -24,6 +24,7 @@ commands:
   check    compare a suite's records with results/baseline/<suite>.json (exit 0 / 1 regression)
   baseline write results/baseline/<suite>.json from a suite's records (options: check.<key>=...)
   tones    membrane frequencies of eigen records: speed=C or tension=T density=RHO
+  claim    a claimed error and time against the best classical method here (claim.error= claim.time=)
   conform  run the solver conformance checks on one solver config (a plug-in's: --config-dir DIR)
 
 options: --version, --help
@@ -341,8 +342,115 @@ def cmd_tones(argv: list[str]) -> int:
     return tones(argv)
 
 
+CLAIM_USAGE = """usage: lapbench claim [--config-dir DIR] problem=<name> [problem.<knob>=V] claim.error=E claim.time=T
+                     [claim.metric=M] [claim.hardware='...'] [claim.method='...'] [claim.solvers=[a,b]]
+                     [claim.name=NAME] [seed=, threads=, budget.*=, timing.*=, results_dir=]
+
+Solves the problem to the claimed error with every classical method that supports it (each at
+its cheapest resolution: doubling, then bisection; every probe an ordinary recorded case), and
+writes a verdict: the fastest method, its resolution and time here, the ratio claimed time /
+classical time. Prints the verdict; writes <results_dir>/claims/<name>/claim.md and claim.tex.
+  claim.error   the claimed error (positive)        claim.time  the claimed time in seconds
+  claim.metric  rel_l2 (default), abs_l2, max_abs, rel_max, nodal_max; eigen problems:
+                eig_rel_max (default), eig_rel_1, mode_angle_max
+  claim.hardware, claim.method   free text shown in the verdict
+  claim.solvers  only these classical solvers (default: every one that supports the problem)
+"""
+CLAIM_KEYS = ("error", "time", "metric", "hardware", "method", "solvers", "name")
+
+
+def _number(text: str):
+    """A number as written (``1e-3`` too, which YAML 1.1 reads as text); other text unchanged."""
+    try:
+        return float(text)
+    except ValueError:
+        return text
+
+
+def cmd_claim(argv: list[str]) -> int:
+    """`lapbench claim`: everything validated before the first probe runs; bad input exits 2."""
+    import shlex
+
+    import yaml
+    from omegaconf import OmegaConf
+
+    from bench.claim import Claim, claim_check, classical_solvers
+    from bench.problems import make_problem
+    from bench.records import write_atomic
+    from bench.tolerance import knob_for
+
+    opts, rest = {}, []
+    for a in argv:
+        key, eq, value = a.partition("=")
+        if key.startswith("claim.") and eq:
+            field = key[len("claim."):]
+            if field not in CLAIM_KEYS:
+                from bench.compose import unknown_field
+
+                raise ConfigError(unknown_field(key, list(CLAIM_KEYS)).replace("`claim.", "`claim.", 1))
+            try:
+                opts[field] = (value if field in ("hardware", "method", "name") else _number(value)
+                               if field in ("error", "time") else yaml.safe_load(value))
+            except yaml.YAMLError:
+                raise ConfigError(f"`{key}`: cannot read the value {value!r}") from None
+        else:
+            rest.append(a)
+    args = Args(rest)
+    if args.help:
+        print(CLAIM_USAGE)
+        return 0
+    for need in ("error", "time"):
+        if need not in opts:
+            raise ConfigError(f"`claim.{need}` is required (e.g. claim.error=1e-3 claim.time=30)")
+    solvers = opts.pop("solvers", None)
+    name = opts.pop("name", None)
+    claim = Claim(**opts)
+    if name is not None and (not name or "/" in name or name.startswith(".")):
+        raise ConfigError(f"`claim.name` must be a plain folder name, got {name!r}")
+    if any(o.split("=", 1)[0].lstrip("+~") in ("solver", "suite") for o in args.overrides):
+        raise ConfigError("`solver`/`suite` do not apply to `lapbench claim`; use claim.solvers=[...]")
+    base = args.searchpath_overrides() + args.overrides
+    with Session(args) as session:
+        case, ropts = case_from_cfg(session.compose(base))
+        problem = make_problem(case.problem)
+        if solvers is None:
+            names = classical_solvers(problem)
+        elif isinstance(solvers, str):
+            names = [solvers]
+        elif isinstance(solvers, list) and all(isinstance(x, str) for x in solvers):
+            names = solvers
+        else:
+            raise ConfigError(f"`claim.solvers` must be a list of solver names, got {solvers!r}")
+        configs = {}
+        for s in names:
+            cfg = session.compose(base + [f"solver={s}"])
+            configs[s] = OmegaConf.to_container(cfg.solver, resolve=True)
+            knob_for(configs[s])
+    command = "lapbench claim " + " ".join(shlex.quote(a) for a in argv)
+
+    def progress(solver, probe, rec):
+        err = f"{probe.error:.3e}" if probe.ok else ""
+        print(f"  {solver} {probe.value}: {probe.status} {err}{' (record exists)' if probe.skipped else ''}",
+              file=sys.stderr)
+
+    print(f"lapbench: claim check on {case.problem_label}: {len(configs)} classical method(s); "
+          f"records under {ropts.results_dir}/runs/", file=sys.stderr)
+    verdict = claim_check(case.problem, claim, configs, seed=case.seed, threads=case.threads, budget=case.budget,
+                          timing=case.timing, results_dir=ropts.results_dir, problem_label=case.problem_label,
+                          force=ropts.force, command=command, on_probe=progress)
+    from bench.report.frame import _slug
+
+    out = Path(ropts.results_dir) / "claims" / (name or _slug(verdict.problem_id))
+    out.mkdir(parents=True, exist_ok=True)
+    write_atomic(out / "claim.md", verdict.to_markdown())
+    write_atomic(out / "claim.tex", verdict.to_latex())
+    print(verdict.to_markdown())
+    print(f"lapbench: verdict written to {out}/claim.md and claim.tex", file=sys.stderr)
+    return 0
+
+
 COMMANDS = {"run": cmd_run, "list": cmd_list, "report": cmd_report, "check": cmd_check, "baseline": cmd_baseline,
-            "conform": cmd_conform, "tones": cmd_tones}
+            "conform": cmd_conform, "tones": cmd_tones, "claim": cmd_claim}
 
 
 def main(argv: list[str] | None = None) -> int:
