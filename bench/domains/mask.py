@@ -352,7 +352,8 @@ class Mask(Domain):
     # -- hard boundaries ------------------------------------------------------------------------------
     @cached_property
     def _edges_view(self):
-        """The segments shaped as a polygon's edges, for the shared R-function edge terms."""
+        """The segments shaped as a polygon's edges, for the polygon's edge terms and sampler
+        (they read only `edges`)."""
         return types.SimpleNamespace(edges=self.segments)
 
     def _rfun(self, p: np.ndarray) -> np.ndarray:
@@ -426,17 +427,10 @@ class Mask(Domain):
 
     def sample_boundary(self, n, rng=None):
         """Uniform in arc length over the boundary segments; outward normals (right of the
-        segment's direction)."""
-        A, B = self.segments
-        d = B - A
-        L = np.linalg.norm(d, axis=1)
-        cum = np.concatenate([[0.0], np.cumsum(L)])
-        s = rng.uniform(0, cum[-1], n) if rng is not None else (np.arange(n) + 0.5) * cum[-1] / n
-        e = np.clip(np.searchsorted(cum, s, side="right") - 1, 0, len(L) - 1)
-        t = (s - cum[e]) / L[e]
-        pts = A[e] + t[:, None] * d[e]
-        nrm = np.column_stack([d[e, 1], -d[e, 0]]) / L[e, None]
-        return pts, nrm
+        segment's direction): the polygon's edge sampler on the segments."""
+        from bench.domains.polygon import Polygon
+
+        return Polygon.sample_boundary(self._edges_view, n, rng)
 
     def quadrature(self, level=48):
         """Tensor Gauss-Legendre on every True pixel: 2 x 2 points per pixel when the image has
