@@ -182,3 +182,44 @@ def test_generated_masks_are_seeded_and_valid(shape):
     b = Mask(shape=shape, pixels=32, seed=5)
     assert np.array_equal(a.cells, b.cells) and a.interior_corners.any()
     assert not a.cells[0].any() and not a.cells[-1].any()       # the False frame
+
+
+@pytest.mark.parametrize("cfg", [{"solution": "cubic"}, {"solution": "exp_sin"}, {"solution": "wave", "k": 2.0}])
+def test_mask_exact_solutions_satisfy_pde_and_boundary(cfg):
+    from bench.numerics import fd_laplacian  # fourth-order central differences (common practice)
+
+    p = make_problem({"name": "mask_exact", **cfg})
+    pts = p.domain.sample_interior(200, np.random.default_rng(0))
+    f = p.f_or_zero(pts)
+    # FD truncation error at h = 1e-3 is ~1e-12 u^(6): 2e-5 relative is ample and still fails
+    # on a wrong sign or factor
+    assert np.max(np.abs(-fd_laplacian(p.exact, pts, 1e-3) - f)) <= 2e-5 * max(1.0, np.abs(f).max())
+    bp, _ = p.domain.sample_boundary(100, np.random.default_rng(1))
+    np.testing.assert_allclose(p.public().g(bp), p.exact(bp), atol=1e-14)
+
+
+def test_imaging_run_and_report_end_to_end(tmp_path):
+    """Status-only: `lapbench run` writes imaging records with the PSNRs and the hole's values,
+    `lapbench report` draws the images figure beside the tables."""
+    import json
+    import subprocess
+
+    from tests.conftest import LAPBENCH
+
+    common = [f"results_dir={tmp_path}", "timing.repeats=1", "timing.min_time=0", "timing.warmup=0",
+              "problem.domain.pixels=24"]
+    p = subprocess.run([LAPBENCH, "run", "--multirun", "problem=inpaint", "solver=pixel5,fem_p1", *common],
+                       cwd=tmp_path, capture_output=True, text=True, timeout=300)
+    assert p.returncode == 0, p.stderr
+    recs = [json.loads(r.read_text()) for r in sorted((tmp_path / "runs").glob("*.json"))]
+    assert len(recs) == 2 and all(r["status"] == "ok" for r in recs)
+    for r in recs:
+        m = r["metrics"]
+        assert m["reference"] == "discrete" and np.isfinite(m["psnr_original"]) and m["image"]["hole_values"]
+    p = subprocess.run([LAPBENCH, "report", f"results_dir={tmp_path}", "report.name=img",
+                        "report.figures.kinds=[images]", "report.figures.formats=[png]"],
+                       cwd=tmp_path, capture_output=True, text=True, timeout=300)
+    assert p.returncode == 0, p.stderr
+    figs = list((tmp_path / "reports" / "img" / "figures").glob("images__*.png"))
+    assert len(figs) == 1
+    assert f"figures/{figs[0].name}" in (tmp_path / "reports" / "img" / "report.md").read_text()
