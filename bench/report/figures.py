@@ -4,8 +4,11 @@ Per problem: error against method time with each family's Pareto front; error ag
 of freedom (classical) or trainable parameters (learned) with the fitted convergence slopes;
 learned methods' training curves with the time at which the best classical run reached the same
 error. For chosen cases: the pointwise error field. Colours come from seaborn's colour-blind-safe
-palette (one colour per method family, one marker per method), and the diverging field map is
-red-blue, which stays readable under the common colour-vision deficiencies.
+palette: each method its own colour (methods of one family side by side in the palette) and its own
+marker; the diverging field map is red-blue, which stays readable under the common colour-vision
+deficiencies. Points of a method that coincide with an earlier method's (identical results, such
+as fd5 and fst5, which solve the same linear system) are drawn as larger hollow rings around the
+earlier filled marker, so that neither hides the other.
 """
 from __future__ import annotations
 
@@ -21,7 +24,7 @@ from bench.report.options import FAIL_STATUSES, FAMILY_ORDER, _is_learned
 from bench.report.rules import best_errors, order_fits, pareto_front, run_points
 from bench.report.images import fig_images
 
-__all__ = ["Figure", "make_figures", "family_colours"]
+__all__ = ["Figure", "make_figures", "family_colours", "method_colours"]
 
 
 MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "h")
@@ -54,6 +57,65 @@ def family_colours(families) -> dict:
     for f in sorted(set(families), key=lambda f: (f not in FAMILY_ORDER, str(f))):
         out[f] = known.get(f) or next(extra, pal[7])
     return out
+
+
+def method_colours(frame) -> dict:
+    """Solver -> colour, one per method: methods ordered by family (known families first), then by
+    name, taking the colour-blind palette's ten colours in turn; past ten, evenly spaced hues."""
+    import seaborn as sns
+
+    fams = family_colours(frame["family"])
+    fam_rank = {f: k for k, f in enumerate(fams)}
+    pairs = sorted({(f, s) for f, s in zip(frame["family"], frame["solver"])},
+                   key=lambda fs: (fam_rank[fs[0]], str(fs[1])))
+    solvers = list(dict.fromkeys(s for _, s in pairs))
+    pal = sns.color_palette("colorblind", 10)
+    order = [0, 9, 2, 4, 3, 1, 8, 6, 5, 7]   # blue, sky blue, green, purple, vermilion, orange, ...
+    if len(solvers) <= len(order):
+        return {s: pal[order[k]] for k, s in enumerate(solvers)}
+    hues = sns.color_palette("husl", len(solvers))
+    return {s: hues[k] for k, s in enumerate(solvers)}
+
+
+class _Overlap:
+    """Remembers drawn points (to 0.1 % in log scale) and splits a method's points into the new
+    ones and those that coincide with an earlier method's."""
+
+    def __init__(self):
+        self.seen = set()
+
+    @staticmethod
+    def _key(x, y):
+        return (round(math.log10(x), 3), round(math.log10(y), 3)) if x > 0 and y > 0 else (x, y)
+
+    def split(self, xs, ys):
+        keys = [self._key(float(x), float(y)) for x, y in zip(xs, ys)]
+        dup = np.array([k in self.seen for k in keys], bool)
+        self.seen.update(keys)
+        return dup
+
+
+def _scatter_methods(ax, groups, colours, markers, overlap, **kw):
+    """One scatter per method; points already drawn by an earlier method become hollow rings.
+    Returns True if any point was drawn as a ring."""
+    ringed = False
+    for solver, x, y in groups:
+        x, y = np.asarray(x, float), np.asarray(y, float)
+        dup = overlap.split(x, y)
+        c = colours[solver]
+        if not dup.all():   # (an empty scatter would take the legend entry from the rings)
+            ax.scatter(x[~dup], y[~dup], color=c, marker=markers[solver], s=28, edgecolor="white",
+                       linewidth=0.4, label=solver, zorder=3, **kw)
+        if dup.any():
+            ax.scatter(x[dup], y[dup], facecolor="none", edgecolor=c, marker=markers[solver], s=90,
+                       linewidth=1.4, label=solver, zorder=3.5, **kw)
+            ringed = True
+    return ringed
+
+
+_RING_NOTE = (" Hollow, larger markers: runs whose point coincides with an earlier method's (identical "
+              "results), drawn around it.")
+_FRONT_STYLES = ["-", "--", "-.", ":"]
 
 
 def _markers(frame) -> dict:
@@ -169,22 +231,23 @@ def fig_pareto(pid, frame, pts, cfg, folder) -> Figure | None:
     p = pts[pts["problem_id"] == pid]
     if p.empty:
         return None
-    colours, markers = family_colours(frame["family"]), _markers(frame)
+    colours, markers = method_colours(frame), _markers(frame)
     fig, ax = plt.subplots(figsize=(cfg.figures.width, cfg.figures.height), layout="constrained")
     for tol in cfg.tolerances:
         ax.axhline(tol, color="#9a9a9a", lw=0.8, ls=":", zorder=0)
+    groups = []
     for (fam, solver), q in p.groupby(["family", "solver"], sort=True):
         fin = q[q["final"]]
-        ax.scatter(fin["time"], fin["error"], color=colours[fam], marker=markers[solver], s=28,
-                   edgecolor="white", linewidth=0.4, label=solver, zorder=3)
+        groups.append((solver, fin["time"], fin["error"]))
         ck = q[~q["final"]]
         if len(ck):
-            ax.scatter(ck["time"], ck["error"], color=colours[fam], marker=".", s=6, alpha=0.35,
+            ax.scatter(ck["time"], ck["error"], color=colours[solver], marker=".", s=6, alpha=0.35,
                        linewidth=0, zorder=2)
+    ringed = _scatter_methods(ax, groups, colours, markers, _Overlap())
     _loglog(ax)
-    for fam, q in p.groupby("family", sort=True):
-        _staircase(ax, pareto_front(q), color=colours[fam], lw=1.6, alpha=0.9, label=f"{fam} Pareto front",
-                   zorder=4)
+    for k, (fam, q) in enumerate(p.groupby("family", sort=True)):
+        _staircase(ax, pareto_front(q), color="#333333", lw=1.3, alpha=0.8, ls=_FRONT_STYLES[k % 4],
+                   label=f"{fam} Pareto front", zorder=4)
     ax.set_xlabel(TIME_LABEL)
     ax.set_ylabel(_error_label(cfg, frame, pid))
     ax.set_title(pid)
@@ -197,8 +260,9 @@ def fig_pareto(pid, frame, pts, cfg, folder) -> Figure | None:
     key = f"error_vs_time__{_slug(pid)}"
     return Figure(key, f"Error against runtime: {pid}",
                   "Each marker is one run's final solution (faint dots: training checkpoints of learned "
-                  "runs); staircases are each family's Pareto front over individual runs (no other run is "
-                  "both faster and more accurate). Dotted lines: the report's tolerances.",
+                  "runs), one colour per method; grey staircases, one line style per family, are each "
+                  "family's Pareto front over individual runs (no other run is both faster and more "
+                  "accurate). Dotted lines: the report's tolerances." + (_RING_NOTE if ringed else ""),
                   _save(fig, folder, key, cfg), pid)
 
 
@@ -214,21 +278,21 @@ def fig_order(pid, frame, fits, cfg, folder) -> Figure | None:
     g = g[np.isfinite(g["size"]) & (g["size"] > 0)]
     if g.empty:
         return None
-    colours, markers = family_colours(frame["family"]), _markers(frame)
+    colours, markers = method_colours(frame), _markers(frame)
     fig, ax = plt.subplots(figsize=(cfg.figures.width, cfg.figures.height), layout="constrained")
-    for (fam, solver), q in g.groupby(["family", "solver"], sort=True):
-        ax.scatter(q["size"], q["error"], color=colours[fam], marker=markers[solver], s=28, edgecolor="white",
-                   linewidth=0.4, label=solver, zorder=3)
+    ringed = _scatter_methods(ax, [(solver, q["size"], q["error"])
+                                   for (fam, solver), q in g.groupby(["family", "solver"], sort=True)],
+                              colours, markers, _Overlap())
     f = fits[(fits["problem_id"] == pid) & fits["slope_dofs"].map(_finite)]
     styles = ["-", "--", "-.", ":"]
     for k, (_, r) in enumerate(f.iterrows()):
         x = np.array([r["dofs_min"], r["dofs_max"]])
         y = np.exp(r["intercept_dofs"]) * x ** r["slope_dofs"]
         name = r["solver"] + (f" ({r['variant']})" if r["variant"] else "")
-        ax.plot(x, y, color=colours.get(r["family"], "k"), ls=styles[k % len(styles)], lw=1.3, zorder=4,
+        ax.plot(x, y, color=colours.get(r["solver"], "k"), ls=styles[k % len(styles)], lw=1.3, zorder=4,
                 label=f"{name}: slope {r['slope_dofs']:.2f}")
     _loglog(ax)
-    ax.set_xlabel("degrees of freedom (classical) or trainable parameters (learned), count")
+    ax.set_xlabel("size, count: degrees of freedom (classical)\nor trainable parameters (learned)")
     ax.set_ylabel(_error_label(cfg, frame, pid))
     ax.set_title(pid)
     _legend(fig, ax)
@@ -237,7 +301,8 @@ def fig_order(pid, frame, fits, cfg, folder) -> Figure | None:
                   "Final error of every successful run against its degrees of freedom (classical) or "
                   "trainable parameters (learned); lines are least-squares fits of log error against log "
                   "dofs over the range used for the convergence-order table (a slope of -p/2 is order p "
-                  "in h in two dimensions).", _save(fig, folder, key, cfg), pid)
+                  "in h in two dimensions)." + (_RING_NOTE if ringed else ""), _save(fig, folder, key, cfg),
+                  pid)
 
 
 def fig_training(pid, frame, pts, recs, cfg, folder) -> Figure | None:
@@ -383,6 +448,22 @@ def fig_field(recs, frame, cfg, folder) -> Figure | None:
                   _save(fig, folder, key, cfg), pid)
 
 
+def _tick_label(problem: str, width: int = 18) -> str:
+    """A problem id for a tick: its knobs wrapped at commas onto lines of about `width` characters."""
+    if len(problem) <= width or "(" not in problem:
+        return problem
+    name, knobs = problem.split("(", 1)
+    lines, line = [name + "("], ""
+    for part in knobs.split(","):
+        if line and len(line) + len(part) + 1 > width:
+            lines.append(line + ",")
+            line = part
+        else:
+            line = f"{line},{part}" if line else part
+    lines.append(line)
+    return "\n".join(lines)
+
+
 def fig_overview(recs, frame, pts, cfg, folder) -> Figure | None:
     """Best error of each method on each problem, problems in natural order (frequency or
     sharpness growing to the right)."""
@@ -400,19 +481,27 @@ def fig_overview(recs, frame, pts, cfg, folder) -> Figure | None:
             x += 0.6
         pos[p] = x
         x += 1.0
-    colours, markers = family_colours(frame["family"]), _markers(frame)
-    fig, ax = plt.subplots(figsize=(cfg.figures.width, cfg.figures.height), layout="constrained")
+    colours, markers = method_colours(frame), _markers(frame)
+    # taller than the other figures: the slanted problem ids and the legend share the height
+    fig, ax = plt.subplots(figsize=(cfg.figures.width, cfg.figures.height * 1.35), layout="constrained")
     for tol in cfg.tolerances:
         ax.axhline(tol, color="#9a9a9a", lw=0.8, ls=":", zorder=0)
-    drawn = False
+    drawn = ringed = False
+    seen = {}   # rounded (x, log error) -> drawn already: a method whose points all coincide is a ring
     for (fam, solver), g in best.groupby(["family", "solver"], sort=True):
         g = g[np.isfinite(g["error"].astype(float)) & (g["error"].astype(float) > 0)]
         if g.empty:
             continue
         g = g.assign(x=g["problem_id"].map(pos), name=g["problem_id"].map(name)).sort_values("x")
+        keys = [(x, round(math.log10(e), 3)) for x, e in zip(g["x"], g["error"].astype(float))]
+        same = all(k in seen for k in keys)
+        seen.update(dict.fromkeys(keys))
+        ringed |= same
         for _, seg in g.groupby("name", sort=False):
-            ax.plot(seg["x"], seg["error"], color=colours[fam], marker=markers[solver], lw=1.2, ms=5,
-                    ls="--" if _is_learned(fam) else "-", label=solver)
+            style = dict(mfc="none", mew=1.4, ms=10, lw=1.0, ls=(0, (2, 2))) if same else \
+                dict(ms=5, lw=1.2, ls="--" if _is_learned(fam) else "-")
+            ax.plot(seg["x"], seg["error"], color=colours[solver], marker=markers[solver], label=solver,
+                    zorder=3.5 if same else 3, **style)
         drawn = True
     if not drawn:
         plt.close(fig)
@@ -421,15 +510,19 @@ def fig_overview(recs, frame, pts, cfg, folder) -> Figure | None:
     from matplotlib.ticker import FuncFormatter
 
     ax.yaxis.set_major_formatter(FuncFormatter(_decade_label))
-    ax.set_xticks([pos[p] for p in problems], problems, rotation=30, ha="right", fontsize="small")
+    ax.set_xticks([pos[p] for p in problems], [_tick_label(p) for p in problems], rotation=30, ha="right",
+                  rotation_mode="anchor", fontsize="small")
+    ax.set_xlim(min(pos.values()) - 0.5, max(pos.values()) + 0.5)
     ax.set_xlabel("problem (knobs in brackets)")
-    ax.set_ylabel(_error_label(cfg))
+    ax.set_ylabel(_error_label(cfg).replace(" (", "\n("))   # two lines: the tick labels take height
     _legend(fig, ax)
     key = "best_error_by_problem"
     return Figure(key, "Best error per problem",
                   "Least error each method reached on each problem with any configuration and no time limit "
                   "(upper median over seeds); learned methods dashed. Problems are ordered by their knobs, so "
-                  "frequency or sharpness grows to the right within a problem family.",
+                  "frequency or sharpness grows to the right within a problem family."
+                  + (" Hollow, larger markers on dotted lines: a method whose best errors all coincide with "
+                     "an earlier method's (identical results), drawn around it." if ringed else ""),
                   _save(fig, folder, key, cfg), None)
 
 
