@@ -2,7 +2,8 @@
 
 `MEASURES` maps a problem kind to its measure ``(problem, solution, eval_set) -> metrics``:
 ``laplace`` and ``poisson`` by `solution_errors` (relative L2 by the eval set's quadrature,
-max abs error, nodal max), ``eigen`` by `eigen_errors`:
+max abs error, nodal max; on randomised QMC sets of d >= 3 also the estimate's sampling error
+``rel_l2_stderr`` from independent scramblings, see `sampling_error`), ``eigen`` by `eigen_errors`:
 
 - ``eig_rel``: |lambda_h,i - lambda_i| / lambda_i for each of the first k eigenvalues
   (``eig_rel_1``: the first; ``eig_rel_max``: the worst).
@@ -23,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["MEASURES", "measure", "monitor_fn", "eigen_errors", "eigenspace_angle", "clusters", "BadSolution",
-           "solution_errors", "checked_values", "error_field"]
+           "solution_errors", "checked_values", "error_field", "sampling_error"]
 
 
 CHUNK = 65536   # points per evaluate call when measuring errors
@@ -72,6 +73,9 @@ def solution_errors(problem, solution, eval_set) -> dict:
     num = float(np.sqrt(np.sum(w * e * e)))
     den = float(np.sqrt(np.sum(w * u * u)))
     out = {"rel_l2": num / den if den > 0 else num, "abs_l2": num}
+    if getattr(eval_set, "groups", None) is not None:
+        out.update(sampling_error(e, u, w, eval_set.groups, den > 0))
+        out["eval_method"] = eval_set.method
     extra = eval_set.extra
     ex = checked_values(solution.evaluate, extra) - problem.exact(extra) if len(extra) else np.zeros(0)
     out["max_abs"] = float(max(np.max(np.abs(e)), np.max(np.abs(ex)) if len(ex) else 0.0))
@@ -89,20 +93,54 @@ def solution_errors(problem, solution, eval_set) -> dict:
     return out
 
 
-def error_field(problem, solution, m: int = 41) -> dict:
-    """Pointwise error u_h - u on an m x m grid over the bounding box (NaN outside the domain)."""
-    x0, x1, y0, y1 = problem.domain.bbox
-    xs, ys = np.linspace(x0, x1, m), np.linspace(y0, y1, m)
+def sampling_error(e: np.ndarray, u: np.ndarray, w: np.ndarray, groups: np.ndarray, relative: bool) -> dict:
+    """Sampling error of the L2 error estimate on a randomised QMC set of R replicates.
+
+    Each replicate r (its points re-weighted to a rule of its own) gives an estimate
+    rel_r = ||e||_r / ||u||_r; the replicates are independent (independent scramblings), so the
+    standard error of their mean, s / sqrt(R) with s their sample standard deviation, estimates
+    the sampling error of the pooled estimate ``rel_l2`` (Owen, Ann. Statist. 25, 1997;
+    L'Ecuyer & Lemieux, "Recent advances in randomized quasi-Monte Carlo methods", 2002).
+    Returns ``rel_l2_stderr`` (absolute, in the units of rel_l2), ``rel_l2_replicates`` and
+    ``eval_points``.
+    """
+    R = int(groups.max()) + 1
+    num = np.bincount(groups, weights=w * e * e, minlength=R)
+    den = np.bincount(groups, weights=w * u * u, minlength=R)
+    reps = np.sqrt(num / den) if relative else np.sqrt(num * R)
+    return {"rel_l2_stderr": float(np.std(reps, ddof=1) / np.sqrt(R)) if R > 1 else float("nan"),
+            "rel_l2_replicates": [float(v) for v in reps], "eval_points": int(len(e))}
+
+
+def _field_plane(domain, m: int):
+    """Axes and points of an m x m grid over the domain's first two coordinates, the others
+    at the middle of their ranges (a 2-D slice for d >= 3)."""
+    b = domain.bounds
+    xs, ys = np.linspace(b[0, 0], b[0, 1], m), np.linspace(b[1, 0], b[1, 1], m)
     X, Y = np.meshgrid(xs, ys, indexing="ij")
-    pts = np.column_stack([X.ravel(), Y.ravel()])
+    pts = np.tile(b.mean(axis=1), (m * m, 1))
+    pts[:, 0], pts[:, 1] = X.ravel(), Y.ravel()
+    return xs, ys, pts
+
+
+def error_field(problem, solution, m: int = 41) -> dict:
+    """Pointwise error u_h - u on an m x m grid over the bounding box (NaN outside the domain);
+    for d >= 3 on the plane through the box's centre spanned by the first two coordinates
+    (``slice`` names the fixed coordinates). d = 1 has no field (empty dict)."""
+    if problem.dim < 2:
+        return {}
+    xs, ys, pts = _field_plane(problem.domain, m)
     inside = problem.domain.contains(pts, tol=1e-12)
     if problem.eval_exclude is not None:
         inside &= ~problem.eval_exclude(pts)
     err = np.full(len(pts), np.nan)
     if inside.any():
         err[inside] = checked_values(solution.evaluate, pts[inside]) - problem.exact(pts[inside])
-    return {"x": xs.tolist(), "y": ys.tolist(),
-            "error": [None if not np.isfinite(v) else float(v) for v in err]}
+    out = {"x": xs.tolist(), "y": ys.tolist(),
+           "error": [None if not np.isfinite(v) else float(v) for v in err]}
+    if problem.dim > 2:
+        out["slice"] = {f"x{i}": float(v) for i, v in enumerate(pts[0, 2:], start=2)}
+    return out
 
 
 # -- eigen problems ------------------------------------------------------------------------------

@@ -44,8 +44,15 @@ def _is_scalar(v) -> bool:
 UNIT_SQUARE = {"kind": "rectangle", "x0": 0.0, "x1": 1.0, "y0": 0.0, "y1": 1.0}
 
 
+def _is_uniform(v) -> bool:
+    """A non-empty list of equal numbers."""
+    return (isinstance(v, (list, tuple)) and len(v) > 0
+            and all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in v) and len(set(v)) == 1)
+
+
 def _domain_tag(domain: dict | None) -> str:
-    """``[disk cx=0 cy=0 radius=2]``; empty for the unit square; lists as a short hash."""
+    """``[disk cx=0 cy=0 radius=2]``, ``[box lo=0^10 hi=1^10]``; empty for the unit square; other
+    lists as a short hash."""
     if not domain or {k: domain.get(k) for k in UNIT_SQUARE} == UNIT_SQUARE and len(domain) == len(UNIT_SQUARE):
         return ""
     parts = [str(domain.get("kind", "?"))]
@@ -54,6 +61,9 @@ def _domain_tag(domain: dict | None) -> str:
             continue
         if _is_scalar(v):
             parts.append(f"{k}={v:g}" if isinstance(v, float) else f"{k}={v}")
+        elif _is_uniform(v):
+            # a d-dimensional corner or centre with equal coordinates: ``lo=0^10``
+            parts.append(f"{k}={float(v[0]):g}^{len(v)}")
         else:
             size = f"{len(v)} " if isinstance(v, (list, tuple)) else ""
             parts.append(f"{size}{k} ~{_short_hash(v)}")

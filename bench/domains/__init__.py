@@ -2,7 +2,9 @@
 from __future__ import annotations
 
 from bench.config import ConfigError
-from bench.domains.base import Domain, EvalSet, gauss_legendre_panels
+from bench.domains.ball import Ball, ball_volume, unit_ball
+from bench.domains.base import Domain, EvalSet, gauss_legendre_panels, sobol_eval_set
+from bench.domains.box import Box, unit_box
 from bench.domains.mask import Mask
 from bench.domains.polygon import LSHAPE_VERTICES, Polygon, lshape
 from bench.domains.rectangle import Rectangle
@@ -10,11 +12,12 @@ from bench.domains.round import Annulus, Disk, polar
 from bench.domains.triangulation import ear_clip, triangle_rule
 
 __all__ = ["Domain", "EvalSet", "Mask", "Rectangle", "Disk", "Annulus", "Polygon", "LSHAPE_VERTICES", "lshape",
-           "DOMAIN_KINDS", "make_domain", "gauss_legendre_panels", "polar", "triangle_rule", "ear_clip"]
+           "DOMAIN_KINDS", "make_domain", "gauss_legendre_panels", "polar", "triangle_rule", "ear_clip",
+           "Box", "Ball", "unit_box", "unit_ball", "ball_volume", "sobol_eval_set"]
 
 # kind -> domain class (its dataclass fields are the config keys)
 DOMAIN_KINDS: dict[str, type[Domain]] = {"rectangle": Rectangle, "disk": Disk, "annulus": Annulus,
-                                         "polygon": Polygon, "mask": Mask}
+                                         "polygon": Polygon, "mask": Mask, "box": Box, "ball": Ball}
 
 
 def make_domain(cfg: dict, field: str = "problem.domain") -> Domain:

@@ -4,7 +4,7 @@ from __future__ import annotations
 from typing import Callable
 
 from bench.config import ConfigError, build_params
-from bench.problems import curved, custom, eigen, imaging, manufactured, rectangle
+from bench.problems import curved, custom, eigen, highdim, imaging, manufactured, rectangle
 from bench.problems.base import MAX_EVAL_LEVEL, BoundaryDataError, Problem
 from bench.problems.eigen import EigenProblem
 from bench.problems.rectangle import plate_series, plate_terms
@@ -15,6 +15,7 @@ __all__ = ["Problem", "EigenProblem", "PROBLEMS", "make_problem", "BoundaryDataE
 # name -> (Params schema, builder, one-line description)
 PROBLEMS: dict[str, tuple[type, Callable, str]] = {
     **rectangle.CATALOGUE, **manufactured.CATALOGUE, **curved.CATALOGUE, **eigen.CATALOGUE, **custom.CATALOGUE,
+    **highdim.CATALOGUE,
     **imaging.CATALOGUE,
 }
 

@@ -87,13 +87,18 @@ class Problem:
             return np.zeros(len(points))
         return np.asarray(self.f(points), dtype=float)
 
-    def f_on_grid(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
-        """f on the tensor grid x by y (broadcast where f is a `bench.fields.Field`)."""
+    @property
+    def dim(self) -> int:
+        """Space dimension (= domain.dim; 2 for every planar problem)."""
+        return int(getattr(self.domain, "dim", 2))
+
+    def f_on_grid(self, *axes: np.ndarray) -> np.ndarray:
+        """f on the tensor grid axes[0] x ... x axes[d-1] (broadcast where f is a `bench.fields.Field`)."""
         from bench.fields import on_grid
 
         if self.f is None:
-            return np.zeros((len(x), len(y)))
-        return on_grid(self.f, x, y)
+            return np.zeros(tuple(len(a) for a in axes))
+        return on_grid(self.f, *axes)
 
     def eval_set(self, seed: int = 0):
         es = self.domain.eval_set(seed=seed, level=self.eval_level)
@@ -102,7 +107,8 @@ class Problem:
         keep = ~self.eval_exclude(es.points)
         keep_x = ~self.eval_exclude(es.extra)
         return dataclasses.replace(es, points=es.points[keep], weights=es.weights[keep],
-                                   extra=es.extra[keep_x])
+                                   extra=es.extra[keep_x],
+                                   groups=None if es.groups is None else es.groups[keep])
 
     def describe(self) -> dict:
         return {"name": self.name, "kind": self.kind, "domain": self.domain.to_dict(),
