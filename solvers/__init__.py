@@ -8,6 +8,7 @@ from solvers.pixel import Pixel5
 from solvers.pinn import PINNFourier, PINNHard, PINNRar, PINNRitz, PINNSoft
 from solvers.pinn.eigen import PINNEigen
 from solvers.spectral import Chebyshev
+from solvers.sparse_grid import SparseGridCT
 
 # The one registry: name -> class. Later families add their entries here.
 SOLVERS: dict[str, type[Solver]] = {
@@ -26,6 +27,7 @@ SOLVERS: dict[str, type[Solver]] = {
     "pinn_fourier": PINNFourier,
     "pinn_rar": PINNRar,
     "pinn_eigen": PINNEigen,
+    "sparse_grid": SparseGridCT,
 }
 
 __all__ = ["SOLVERS", "Solver", "Solution", "Budget", "RunContext", "Tags", "Unsupported",
