@@ -6,7 +6,7 @@ import scipy.sparse as sps
 
 __all__ = ["TensorGrid", "second_difference", "apply_stencil", "discrete_rhs", "interior_matrix",
            "LocalLagrange", "MAX_GRID_DIM", "box_axes", "box_boundary_values", "box_operator",
-           "box_fold_boundary", "box_rhs", "TensorLagrange", "default_n", "box_solution",
+           "box_fold_boundary", "box_rhs", "TensorLagrange", "default_n", "box_solution", "box_nodes",
            "refuse_memory", "MAX_REPORTED_NODES"]
 
 
@@ -173,11 +173,11 @@ MAX_GRID_DIM = 32
 DEFAULT_UNKNOWNS = 1 << 21
 
 
-def default_n(dim: int, cap: int = 64) -> int:
+def default_n(dim: int, cap: int = 64, unknowns: int = DEFAULT_UNKNOWNS) -> int:
     """Intervals per side on a d-box when `n` is left at its default `cap`: halved from `cap` while
-    the interior has more than DEFAULT_UNKNOWNS unknowns."""
+    the interior has more than `unknowns` unknowns."""
     n = cap
-    while n > 2 and (n - 1) ** dim > DEFAULT_UNKNOWNS:
+    while n > 2 and (n - 1) ** dim > unknowns:
         n //= 2
     return n
 
@@ -379,19 +379,26 @@ class TensorLagrange:
 MAX_REPORTED_NODES = 1 << 16
 
 
-def box_solution(axes: list[np.ndarray], U: np.ndarray, degree: int, info: dict):
-    """Solution on a d-box tensor grid: `TensorLagrange` interpolant of degree `degree`, and up to
-    MAX_REPORTED_NODES interior nodes (evenly strided) with their values as the nodal set."""
-    from solvers.base import Solution
-
+def box_nodes(axes: list[np.ndarray], U: np.ndarray) -> tuple[np.ndarray | None, np.ndarray | None]:
+    """Up to MAX_REPORTED_NODES interior nodes of a d-box tensor grid (evenly strided in the
+    flat order) and their values in U: the nodal set a Solution reports."""
     inner = U[(slice(1, -1),) * U.ndim]
     total = inner.size
+    if not total:
+        return None, None
     pick = np.unique(np.linspace(0, total - 1, min(total, MAX_REPORTED_NODES)).astype(np.int64))
     idx = np.unravel_index(pick, inner.shape)
-    nodes = np.column_stack([a[1:-1][i] for a, i in zip(axes, idx)]) if total else None
-    return Solution(evaluate=TensorLagrange(axes, U, degree), nodes=nodes,
-                    values=inner.ravel()[pick] if total else None,
-                    info={**info, "nodes_reported": int(len(pick))})
+    return np.column_stack([a[1:-1][i] for a, i in zip(axes, idx)]), inner.ravel()[pick]
+
+
+def box_solution(axes: list[np.ndarray], U: np.ndarray, degree: int, info: dict):
+    """Solution on a uniform d-box grid: `TensorLagrange` interpolant of degree `degree` and the
+    nodal set of `box_nodes`."""
+    from solvers.base import Solution
+
+    nodes, values = box_nodes(axes, U)
+    return Solution(evaluate=TensorLagrange(axes, U, degree), nodes=nodes, values=values,
+                    info={**info, "nodes_reported": 0 if nodes is None else int(len(nodes))})
 
 
 def refuse_memory(name: str, need_mb: float, budget) -> None:

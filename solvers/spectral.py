@@ -1,5 +1,11 @@
 """Chebyshev collocation on tensor-product Chebyshev points, solved by matrix diagonalisation.
 
+On a d-dimensional box (`cheb_box_solve`) the same diagonalisation by mode products: the
+interior operator is the Kronecker sum of the 1-D ones, so the right-hand side is transformed
+by P_i^-1 along every axis i, divided by the sums of 1-D eigenvalues and transformed back by
+P_i (O(d n^(d+1)) work, (n+1)^d storage); `evaluate` contracts the nodal tensor with
+barycentric rows axis by axis.
+
 Eigenproblems (`cheb_eigen`) diagonalise the same 1-D second-derivative matrices and keep the
 eigenvalues that pass the drift test of `solvers.eigen`.
 """
@@ -12,8 +18,14 @@ import numpy as np
 from bench.config import ConfigError, positive
 from solvers.base import Solution, Solver, Tags
 from solvers.eigen import DRIFT_TOL, drift_accept, eigen_solution
+from solvers.grid import MAX_GRID_DIM, box_boundary_values, box_nodes, default_n, refuse_memory
 
-__all__ = ["Chebyshev", "cheb", "barycentric_matrix", "cheb_eigen"]
+__all__ = ["Chebyshev", "cheb", "barycentric_matrix", "cheb_eigen", "cheb_box_solve", "TensorBarycentric"]
+
+# `n` left at its default (32) on a d-box means default_n(d, 32, CHEB_DEFAULT_NODES): the nodal
+# tensor of (n+1)^d values is contracted with every evaluation point (m (n+1)^d flops), so the
+# default keeps it near 2^17 values (32 for d <= 3, 16 for d = 4, 8 for d = 5, 4 for d = 6..8).
+CHEB_DEFAULT_NODES = 1 << 17
 
 
 def cheb(n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -153,6 +165,91 @@ def _cc_weights(x: np.ndarray) -> np.ndarray:
     return w * 0.5 * abs(x[-1] - x[0])
 
 
+# -- boxes in d dimensions -----------------------------------------------------------------------
+def _mode_product(M: np.ndarray, A: np.ndarray, axis: int) -> np.ndarray:
+    """M applied along `axis` of the tensor A (the n-mode product A x_axis M)."""
+    return np.moveaxis(np.tensordot(M, A, axes=(1, axis)), 0, axis)
+
+
+def cheb_axes(bounds, ns) -> tuple[list[np.ndarray], list[np.ndarray]]:
+    """Ascending Chebyshev points per axis of the box `bounds` (d, 2), degree ns[i], and the
+    second-derivative collocation matrices on them."""
+    axes, D2s = [], []
+    for (lo, hi), n in zip(np.asarray(bounds, dtype=float).reshape(-1, 2), ns):
+        D, t = cheb(int(n))
+        length = hi - lo
+        axes.append(lo + 0.5 * length * (1 - t[::-1]))
+        # reversing the nodes reverses rows and columns of D2; the map scales it by (2/length)^2
+        D2s.append((D @ D)[::-1, ::-1] * (2.0 / length) ** 2)
+    return axes, D2s
+
+
+def cheb_box_solve(bounds, ns, f, g, ctx=None) -> tuple[list[np.ndarray], np.ndarray]:
+    """Chebyshev collocation of -Laplace(u) = f, u = g on a d-box, degree ns[i] on axis i.
+
+    Interior equations sum_i (D2_i x_i U) = -F with the boundary values moved right; with
+    D2_i interior = P_i diag(lambda_i) P_i^-1 the solution is
+    U = (R x_i P_i^-1 ... / sum_i lambda_i) x_i P_i ... (Haidvogel & Zang, J. Comput. Phys. 30,
+    1979, in d dimensions by mode products). Returns the node axes and the full nodal tensor.
+    """
+    import contextlib
+
+    from bench.fields import on_grid
+
+    phase = ctx.phase if ctx is not None else (lambda name: contextlib.nullcontext())
+    d = len(ns)
+    inner = (slice(1, -1),) * d
+    with phase("setup"):
+        axes, D2s = cheb_axes(bounds, ns)
+        F = (np.zeros(tuple(int(n) - 1 for n in ns)) if f is None
+             else np.array(on_grid(f, *[a[1:-1] for a in axes]), dtype=float))
+        U = box_boundary_values(axes, g)
+        eig = []
+        for D2 in D2s:
+            lam, P = np.linalg.eig(D2[1:-1, 1:-1])
+            P = P.real
+            eig.append((lam.real, P, np.linalg.inv(P)))
+    with phase("solve"):
+        R = -F
+        if g is not None:
+            for i, D2 in enumerate(D2s):
+                R -= _mode_product(D2, U, i)[inner]
+        for i, (_, _, Pi) in enumerate(eig):
+            R = _mode_product(Pi, R, i)
+        S = np.zeros(R.shape)
+        for i, (lam, _, _) in enumerate(eig):
+            S += lam.reshape([-1 if j == i else 1 for j in range(d)])
+        R /= S
+        for i, (_, P, _) in enumerate(eig):
+            R = _mode_product(P, R, i)
+        U[inner] = R
+    return axes, U
+
+
+class TensorBarycentric:
+    """Barycentric interpolation of a nodal tensor on Chebyshev axes at points (m, d): the
+    tensor is contracted with the barycentric rows of the last axis by one matrix product,
+    then axis by axis (m (n+1)^d flops; points in chunks)."""
+
+    def __init__(self, axes: list[np.ndarray], U: np.ndarray):
+        self.axes, self.U = axes, U
+
+    def __call__(self, points: np.ndarray) -> np.ndarray:
+        p = np.asarray(points, dtype=float)
+        d = len(self.axes)
+        chunk = max(1, min(len(p), (1 << 24) // max(1, self.U.size // len(self.axes[-1]))))
+        out = np.empty(len(p))
+        last = self.U.reshape(-1, len(self.axes[-1]))
+        for c0 in range(0, len(p), chunk):
+            q = p[c0:c0 + chunk]
+            T = last @ barycentric_matrix(self.axes[-1], q[:, -1]).T          # (..., c)
+            for i in range(d - 2, -1, -1):
+                L = barycentric_matrix(self.axes[i], q[:, i])                # (c, n_i + 1)
+                T = np.einsum("ajc,cj->ac", T.reshape(-1, len(self.axes[i]), len(q)), L)
+            out[c0:c0 + chunk] = T.reshape(len(q))
+        return out
+
+
 @dataclasses.dataclass
 class ChebParams:
     n: int = 32   # polynomial degree per direction (n + 1 points)
@@ -179,12 +276,35 @@ class Chebyshev(Solver):
     description = "Chebyshev collocation, matrix diagonalisation, barycentric interpolant"
     reference = "Trefethen, Spectral Methods in MATLAB, SIAM 2000; Haidvogel & Zang, JCP 30 (1979)"
     Params = ChebParams
-    tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=frozenset({"rectangle"}))
+    tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=frozenset({"rectangle", "box"}),
+                dims=frozenset(range(1, MAX_GRID_DIM + 1)))
 
-    def memory_estimate_mb(self) -> float:
+    def box_n(self, dim: int) -> int:
+        """Degree per axis on a d-box: `n` as given, or the dimension's default for the default 32."""
+        n = self.params.n
+        return default_n(dim, n, CHEB_DEFAULT_NODES) if n == ChebParams.n else n
+
+    def memory_estimate_mb(self, problem=None) -> float:
+        if problem is not None and problem.domain.kind != "rectangle":
+            # the nodal tensor, the right-hand side and two mode-product temporaries
+            return 5 * 8 * float(self.box_n(problem.domain.dim) + 1) ** problem.domain.dim / 2 ** 20
         return 10 * 8 * (self.params.n + 1) ** 2 / 2 ** 20
 
+    def _supports(self, problem):
+        if problem.domain.kind != "rectangle" and problem.kind == "eigen":
+            return False, "cheb computes eigenvalues on rectangles only"
+        return True, ""
+
     def _solve(self, problem, budget, ctx):
+        if problem.domain.kind != "rectangle":
+            dim = problem.domain.dim
+            n = self.box_n(dim)
+            refuse_memory(self.name, self.memory_estimate_mb(problem), budget)
+            axes, U = cheb_box_solve(problem.domain.bounds, [n] * dim, problem.f, problem.g, ctx)
+            nodes, values = box_nodes(axes, U)
+            return Solution(evaluate=TensorBarycentric(axes, U), nodes=nodes, values=values,
+                            info={"dofs": int((n - 1) ** dim), "n": n, "dim": dim,
+                                  "h": float(np.max(np.diff(problem.domain.bounds, axis=1)) / n)})
         n = self.params.n
         d = problem.domain
         if problem.kind == "eigen":  # Kronecker-sum spectrum with the drift filter
