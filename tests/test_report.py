@@ -405,13 +405,20 @@ def parse_tabulars(tex: str):
 class _Refs(html.parser.HTMLParser):
     def __init__(self):
         super().__init__()
-        self.refs, self.imgs = [], 0
+        self.refs, self.imgs, self.ids = [], 0, set()
 
     def handle_starttag(self, tag, attrs):
         for k, v in attrs:
             if k in ("src", "href") and v is not None:
                 self.refs.append(v)
+            if k == "id":
+                self.ids.add(v)
         self.imgs += tag == "img"
+
+    def resolves(self, ref, folder):
+        """Embedded, a link into the page (an existing id), or an existing file beside it."""
+        return (ref.startswith("data:image/") or (ref.startswith("#") and ref[1:] in self.ids)
+                or (folder / ref).is_file())
 
 
 def field_of(n=41):
@@ -465,7 +472,7 @@ def test_report_files_are_produced_and_well_formed(tmp_path):
     refs.feed(page)
     assert refs.imgs == len(pngs)
     for ref in refs.refs:
-        assert ref.startswith("data:image/") or (out / ref).is_file(), ref
+        assert refs.resolves(ref, out), ref
     # Markdown: the images it links exist, the failure is visible
     md = (out / "report.md").read_text()
     for ref in re.findall(r"!\[[^\]]*\]\(([^)]+)\)", md):
@@ -525,4 +532,4 @@ def test_cli_study_ci_end_to_end(lapbench_cmd, tmp_path):
     assert list((out / "figures").glob("error_field*.png"))
     refs = _Refs()
     refs.feed((out / "report.html").read_text())
-    assert all(ref.startswith("data:image/") or (out / ref).is_file() for ref in refs.refs)
+    assert all(refs.resolves(ref, out) for ref in refs.refs)

@@ -1,5 +1,9 @@
 """Writing a report: Markdown, LaTeX, CSV and self-contained HTML under results/reports/<name>/,
-with the rules text at the top of each."""
+with the rules text and a table of contents at the top of each.
+
+Links between the report's files are relative (the folder can be moved or copied whole); the HTML
+embeds every figure as a data URI, in whichever of its written formats (PNG, SVG) is smaller.
+Wide tables scroll inside their own box, so that the page itself never scrolls sideways."""
 from __future__ import annotations
 
 import base64
@@ -65,15 +69,19 @@ padding:0 1rem;color:#222;line-height:1.45}table{border-collapse:collapse;margin
 th,td{padding:.25rem .6rem;text-align:left;vertical-align:top}thead th{border-top:2px solid #222;
 border-bottom:1px solid #222}tbody tr:last-child td{border-bottom:2px solid #222}caption{caption-side:bottom;
 text-align:left;font-size:.85rem;color:#555;padding-top:.3rem}figure{margin:1rem 0 2rem}img{max-width:100%}
-figcaption{font-size:.85rem;color:#555}code{background:#f3f3f3;padding:0 .2rem}"""
+figcaption{font-size:.85rem;color:#555}code{background:#f3f3f3;padding:0 .2rem}
+img{height:auto}.tbl{overflow-x:auto;max-width:100%}p,li,figcaption,caption,h1,h2,h3{overflow-wrap:anywhere}
+nav ul{padding-left:1.2rem;margin:.2rem 0}nav>ul{columns:2 24rem}nav li{font-size:.9rem}
+@media print{body{max-width:none;margin:0}.tbl{overflow:visible}figure,table{break-inside:avoid}
+nav>ul{columns:1}}"""
 
 
 def html_table(t: Table) -> str:
     head = "".join(f"<th>{html.escape(str(c))}</th>" for c in t.display.columns)
     body = "".join("<tr>" + "".join(f"<td>{html.escape(_fmt(r[c]))}</td>" for c in t.display.columns) + "</tr>"
                    for _, r in t.display.iterrows())
-    return (f"<table><caption>{_inline_html(t.caption)}</caption><thead><tr>{head}</tr></thead>"
-            f"<tbody>{body}</tbody></table>\n")
+    return (f"<div class=\"tbl\"><table><caption>{_inline_html(t.caption)}</caption><thead><tr>{head}</tr>"
+            f"</thead><tbody>{body}</tbody></table></div>\n")
 
 
 def _inline_html(text: str) -> str:
@@ -84,6 +92,27 @@ def _inline_html(text: str) -> str:
 def _data_uri(path: Path) -> str:
     mime = {"png": "image/png", "svg": "image/svg+xml"}[path.suffix[1:]]
     return f"data:{mime};base64," + base64.b64encode(path.read_bytes()).decode("ascii")
+
+
+def _smallest_image(paths: dict) -> Path:
+    """The figure's smallest written file (PNG or SVG: line plots are smaller as SVG, dense
+    fields as PNG); a data URI of it is the smallest too (same base64 for both)."""
+    return min(paths.values(), key=lambda p: (p.stat().st_size, p.suffix))
+
+
+def _anchor(text: str) -> str:
+    """GitHub's heading anchor: lower case, punctuation dropped, spaces to hyphens (the HTML
+    report uses the same ids, so one link works in both)."""
+    return re.sub(r"[^\w\- ]", "", text.strip().lower()).replace(" ", "-")
+
+
+def _toc_entries(tables, figs, recs) -> list[tuple[str, list[str]]]:
+    """(section heading, [its table and figure headings]) in reading order."""
+    out = [("How to read this report", [])]
+    for name, ts, fs in _sections(tables, figs):
+        if ts or fs:
+            out.append((name, [t.title for t in ts] + [f.title for f in fs]))
+    return out
 
 
 def _repeats_text(frame) -> str:
@@ -220,6 +249,10 @@ def _sections(tables, figs):
 
 def _markdown(title, cfg, recs, frame, tables, figs, out: Path) -> str:
     lines = [f"# {title}", "", _filters_text(cfg, recs), "", _environment_text(recs) if recs else "", ""]
+    lines += ["## Contents", ""]
+    for sec, subs in _toc_entries(tables, figs, recs):   # sections only: subsection anchors repeat
+        lines.append(f"- [{sec}](#{_anchor(sec)})")
+    lines += [""]
     lines += ["## How to read this report", ""] + [f"- {t}" for t in _rules_text(cfg, frame)] + [""]
     if not recs:
         lines += ["No records matched; nothing to compare.", ""]
@@ -256,23 +289,45 @@ def _html(title, cfg, recs, frame, tables, figs, out: Path, csv_files) -> str:
     parts = [f"<p>{html.escape(_filters_text(cfg, recs))}</p>"]
     if recs:
         parts.append(f"<p>{html.escape(_environment_text(recs))}</p>")
-    parts.append("<h2>How to read this report</h2><ul>" + "".join(f"<li>{_inline_html(t)}</li>"
-                                                                   for t in _rules_text(cfg, frame)) + "</ul>")
+    ids = {}
+
+    def uid(text):   # unique ids: a repeated heading gets -1, -2, ... as GitHub numbers them
+        a = _anchor(text)
+        n = ids.get(a, 0)
+        ids[a] = n + 1
+        return a if n == 0 else f"{a}-{n}"
+
+    heads = [(sec, uid(sec), [(sub, uid(sub)) for sub in subs]) for sec, subs in _toc_entries(tables, figs, recs)]
+    toc = "".join(f"<li><a href=\"#{a}\">{html.escape(sec)}</a>"
+                  + ("<ul>" + "".join(f"<li><a href=\"#{b}\">{html.escape(sub)}</a></li>" for sub, b in subs)
+                     + "</ul>" if subs else "") + "</li>" for sec, a, subs in heads)
+    parts.append(f"<nav aria-label=\"Contents\"><h2>Contents</h2><ul>{toc}</ul></nav>")
+    anchor = {}
+    for sec, a, subs in heads:
+        anchor.setdefault(sec, []).append(a)
+        for sub, b in subs:
+            anchor.setdefault(sub, []).append(b)
+
+    def hid(text):
+        return anchor[text].pop(0) if anchor.get(text) else uid(text)
+
+    parts.append(f"<h2 id=\"{hid('How to read this report')}\">How to read this report</h2><ul>"
+                 + "".join(f"<li>{_inline_html(t)}</li>" for t in _rules_text(cfg, frame)) + "</ul>")
     if not recs:
         parts.append("<p>No records matched; nothing to compare.</p>")
     csv_set = set(csv_files)
     for name, ts, fs in _sections(tables, figs):
         if not ts and not fs:
             continue
-        parts.append(f"<h2>{html.escape(name)}</h2>")
+        parts.append(f"<h2 id=\"{hid(name)}\">{html.escape(name)}</h2>")
         for t in ts:
             link = f" <a href=\"csv/{html.escape(t.key)}.csv\">(CSV)</a>" if f"csv/{t.key}.csv" in csv_set else ""
-            parts.append(f"<h3>{html.escape(t.title)}{link}</h3>" + html_table(t))
+            parts.append(f"<h3 id=\"{hid(t.title)}\">{html.escape(t.title)}{link}</h3>" + html_table(t))
         for f in fs:
-            src = f.paths.get("png") or f.paths.get("svg")
-            parts.append(f"<figure><img alt=\"{html.escape(f.title)}\" src=\"{_data_uri(src)}\">"
-                         f"<figcaption><b>{html.escape(f.title)}.</b> {_inline_html(f.caption)}</figcaption>"
-                         "</figure>")
+            src = _smallest_image(f.paths)
+            parts.append(f"<figure id=\"{hid(f.title)}\"><img alt=\"{html.escape(f.title)}\" "
+                         f"src=\"{_data_uri(src)}\"><figcaption><b>{html.escape(f.title)}.</b> "
+                         f"{_inline_html(f.caption)}</figcaption></figure>")
     if cfg.runs_table:
         parts.append("<p>Every run, one row each: <a href=\"results.html\">results.html</a>.</p>")
     return _html_page(title, parts)
