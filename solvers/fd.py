@@ -1,7 +1,9 @@
 """Finite differences on tensor grids: the 5-point scheme and the compact 9-point scheme.
 
 Eigenproblems on rectangles (`grid_eigen`) use the same matrices, by the shared shift-invert
-Lanczos of `solvers.eigen`; fd5 on other domains goes to `solvers.masked`.
+Lanczos of `solvers.eigen`; fd5 on other domains goes to `solvers.masked`. fd5 on d-boxes,
+d <= 4 (`box_matrix`): the (2d + 1)-point operator as a sparse Kronecker sum, sparse direct or
+AMG-CG.
 """
 from __future__ import annotations
 
@@ -13,10 +15,18 @@ import scipy.sparse as sps
 from bench.config import ConfigError, one_of, positive
 from solvers.base import Solution, Solver, Tags
 from solvers.eigen import eigen_solution, eigsh_lowest, field_modes
-from solvers.grid import LocalLagrange, TensorGrid, discrete_rhs, interior_matrix, second_difference
+from solvers.grid import (LocalLagrange, TensorGrid, box_axes, box_rhs, box_solution, default_n,
+                          discrete_rhs, interior_matrix, refuse_memory, second_difference)
 from solvers.linalg import LINEAR_SOLVERS, solve_spd
 
-__all__ = ["FD5", "FD9", "MAX_GRID_N", "grid_eigen"]
+__all__ = ["FD5", "FD9", "MAX_GRID_N", "grid_eigen", "box_matrix", "FD_BOX_DIMS"]
+
+# Dimensions of the boxes fd5 takes: beyond 4 a sparse matrix of (n-1)^d rows is never the
+# method of choice (the sine transforms solve the same system, `fst5`).
+FD_BOX_DIMS = frozenset({1, 2, 3, 4})
+# `n` left at its default (64) on a d-box: default_n(d, 64, FD_BOX_UNKNOWNS) (64 for d = 1, 2,
+# 32 for d = 3, 16 for d = 4)
+FD_BOX_UNKNOWNS = 1 << 16
 
 # A grid finer than this needs > ~0.5 TB for a sparse factorisation; refused up front.
 MAX_GRID_N = 1 << 15
@@ -79,6 +89,20 @@ class _SparseFD(Solver):
                              info={**info, "dofs": int(u.size), "h": max(grid.hx, grid.hy)})
 
 
+def box_matrix(ns, hs) -> sps.csr_matrix:
+    """-sum_i D_i on the interior of a d-box grid as a sparse Kronecker sum (C order: the last
+    axis varies fastest, as numpy's ravel)."""
+    blocks = [second_difference(int(n) - 1, h) for n, h in zip(ns, hs)]
+    A = None
+    for i, Di in enumerate(blocks):
+        term = None
+        for j, Dj in enumerate(blocks):
+            factor = -Di if j == i else sps.identity(Dj.shape[0], format="csr")
+            term = factor if term is None else sps.kron(term, factor, format="csr")
+        A = term if A is None else A + term
+    return A.tocsr()
+
+
 def grid_solution(grid: TensorGrid, U: np.ndarray, degree: int, info: dict) -> Solution:
     """Solution on a tensor grid: local Lagrange interpolant, interior nodes as the nodal set."""
     return Solution(evaluate=LocalLagrange(grid.x, grid.y, U, degree), nodes=grid.interior_points,
@@ -124,11 +148,36 @@ class FD5(_SparseFD):
     name = "fd5"
     description = "5-point finite differences, sparse direct or AMG-CG solve (order 2)"
     reference = "LeVeque, Finite Difference Methods for ODEs and PDEs, SIAM 2007, ch. 3"
-    # Non-rectangular domains: masked grid with Shortley-Weller arms (solvers/masked.py).
+    # Non-rectangular domains: masked grid with Shortley-Weller arms (solvers/masked.py); d-boxes
+    # (d <= 4): the Kronecker-sum matrix (`box_matrix`).
     tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}),
-                domains=frozenset({"rectangle", "disk", "annulus", "polygon"}))
+                domains=frozenset({"rectangle", "disk", "annulus", "polygon", "box"}), dims=FD_BOX_DIMS)
+
+    def _supports(self, problem):
+        if problem.domain.kind == "box" and problem.kind == "eigen":
+            return False, "fd5 computes eigenvalues on rectangles and curved 2-D domains, not on boxes"
+        return True, ""
+
+    def box_n(self, dim: int) -> int:
+        """Intervals per side on a d-box: `n` as given, or the dimension's default for the default 64."""
+        n = self.params.n
+        return default_n(dim, n, FD_BOX_UNKNOWNS) if n == FDParams.n else n
+
+    def memory_estimate_mb(self, problem=None) -> float:
+        if problem is None or problem.domain.kind != "box":
+            return super().memory_estimate_mb()
+        dim = problem.domain.dim
+        N = float(self.box_n(dim) - 1) ** dim
+        if self.params.linear_solver == "amg":
+            per = 8 * 68.0 * dim / 2
+        else:
+            # nested-dissection-like fill grows like N^((d-1)/d) per unknown in d >= 3
+            per = 8 * (24 + 7 * np.log2(max(N, 2)) + (6 * N ** ((dim - 2) / dim) if dim > 2 else 0))
+        return N * per / 2 ** 20
 
     def _solve(self, problem, budget, ctx):
+        if problem.domain.kind == "box":
+            return self._solve_box(problem, budget, ctx)
         if problem.domain.kind != "rectangle" and problem.kind == "eigen":
             from solvers.masked import masked_eigen  # the same masked operator, eigenpairs
 
@@ -139,6 +188,20 @@ class FD5(_SparseFD):
 
             return masked_fd5(problem, self.params, ctx)
         return super()._solve(problem, budget, ctx)
+
+    def _solve_box(self, problem, budget, ctx):
+        dim = problem.domain.dim
+        n = self.box_n(dim)
+        refuse_memory(self.name, self.memory_estimate_mb(problem), budget)
+        with ctx.phase("setup"):
+            axes = box_axes(problem.domain.bounds, [n] * dim)
+            hs = [a[1] - a[0] for a in axes]
+            A = box_matrix([n] * dim, hs)
+            rhs, U = box_rhs(axes, problem.f, problem.g, compact=False)
+        with ctx.phase("solve"):
+            u, info = solve_spd(A, rhs.ravel(), self.params.linear_solver, self.params.tol)
+        U[(slice(1, -1),) * dim] = u.reshape(rhs.shape)
+        return box_solution(axes, U, 1, {**info, "dofs": int(u.size), "n": n, "dim": dim, "h": max(hs)})
 
 
 class FD9(_SparseFD):
