@@ -223,3 +223,25 @@ def test_imaging_run_and_report_end_to_end(tmp_path):
     figs = list((tmp_path / "reports" / "img" / "figures").glob("images__*.png"))
     assert len(figs) == 1
     assert f"figures/{figs[0].name}" in (tmp_path / "reports" / "img" / "report.md").read_text()
+
+
+def test_p1_on_triangulated_pixels_is_the_five_point_scheme():
+    # P1 stiffness on a uniform right-triangle mesh is the 5-point stencil [common practice;
+    # e.g. Strang & Fix, An Analysis of the Finite Element Method, 1973, from memory for the
+    # section]: for Laplace data
+    # the nodal values of fem_p1 at level 0 equal pixel5's at refine 1.
+    prob = make_problem({"name": "inpaint", "domain": {"kind": "mask", "shape": "text", "pixels": 32}})
+    fem = SOLVERS["fem_p1"](params={"level": 0}).solve(prob.public())
+    pix = SOLVERS["pixel5"]().solve(prob.public())
+    np.testing.assert_allclose(fem.evaluate(pix.nodes), pix.values, atol=1e-12)
+
+
+def test_hard_boundary_pinn_meets_the_data_on_pixel_edges():
+    # u = g_ext + phi N with phi = 0 and g_ext = g on every boundary segment: the network's
+    # output satisfies the data on the boundary whatever it learned (float32 rounding).
+    prob = make_problem({"name": "mask_exact", "solution": "exp_sin",
+                         "domain": {"kind": "mask", "shape": "text", "pixels": 24}})
+    s = SOLVERS["pinn_hard"](params={"width": 8, "depth": 2, "n_interior": 64, "adam_steps": 20, "lbfgs_steps": 0})
+    sol = s.solve(prob.public())
+    bp, _ = prob.domain.sample_boundary(200, np.random.default_rng(4))
+    assert np.max(np.abs(sol.evaluate(bp) - prob.exact(bp))) < 1e-5
