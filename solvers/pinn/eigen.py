@@ -50,7 +50,7 @@ import numpy as np
 from bench.config import ConfigError, one_of, positive
 from solvers.base import Diverged, Solver, Tags
 from solvers.eigen import eigen_solution
-from solvers.pinn.options import (ACTIVATIONS, MAX_DEPTH, MAX_WIDTH, PRECISIONS, STRATEGIES,
+from solvers.pinn.options import (ACTIVATIONS, MAX_DEPTH, MAX_DIM, MAX_WIDTH, PRECISIONS, STRATEGIES,
                                   check_schedule)
 from solvers.pinn.runtime import preload_torch
 
@@ -118,8 +118,10 @@ class PINNEigen(Solver):
                  "Sukumar & Srivastava, CMAME 389 (2022)")
     Params = PINNEigenParams
     # same seed, same thread count -> same result to rounding (a run cut by the time cap excepted)
-    tags = Tags(kinds=frozenset({"eigen"}), domains=frozenset({"rectangle", "disk", "annulus", "polygon"}),
-                deterministic=True)
+    # d-boxes and d-balls: the domain's quadrature is its randomised QMC rule for d >= 3
+    tags = Tags(kinds=frozenset({"eigen"}),
+                domains=frozenset({"rectangle", "disk", "annulus", "polygon", "box", "ball"}),
+                deterministic=True, dims=frozenset(range(1, MAX_DIM + 1)))
 
     preload_modules = ("scipy.linalg",)
 
@@ -231,7 +233,7 @@ def _trace_objective(nets, fields, W):
 
     def objective(step):
         V, G = zip(*(fields(net) for net in nets))
-        V, G = torch.stack(V, 1), torch.stack(G, 1)                 # (m, k), (m, k, 2)
+        V, G = torch.stack(V, 1), torch.stack(G, 1)                 # (m, k), (m, k, d)
         B = (V.T @ (W[:, None] * V)).double()
         A = torch.einsum("mkd,m,mld->kl", G, W, G).double()
         L, info = torch.linalg.cholesky_ex(B)
@@ -259,8 +261,8 @@ def _phi_gradient(domain, x: np.ndarray):
     h = np.clip(1e-3 * dist, 1e-12 * domain.scale, 1e-4 * domain.scale)[:, None]
     phi = np.asarray(domain.phi(x), dtype=float)
     grad = np.empty_like(x)
-    for i in range(2):
-        e = np.zeros(2)
+    for i in range(x.shape[1]):
+        e = np.zeros(x.shape[1])
         e[i] = 1.0
         grad[:, i] = (np.asarray(domain.phi(x + h * e), dtype=float)
                       - np.asarray(domain.phi(x - h * e), dtype=float)) / (2 * h[:, 0])
@@ -288,7 +290,7 @@ def _rayleigh_ritz(nets, domain, level: int):
     with torch.no_grad():
         V, G = zip(*(_hard_fields(net, X, PHI, GPHI) for net in nets64))
     V = torch.stack(V, 1).numpy()                             # (m, k)
-    G = torch.stack(G, 1).numpy()                             # (m, k, 2)
+    G = torch.stack(G, 1).numpy()                             # (m, k, d)
     A = np.einsum("m,mid,mjd->ij", w, G, G)
     B = np.einsum("m,mi,mj->ij", w, V, V)
     lam, C = scipy.linalg.eigh(A, B)
@@ -299,7 +301,7 @@ def _rayleigh_ritz(nets, domain, level: int):
     C = C * s
 
     def fields(points):
-        q = np.ascontiguousarray(np.asarray(points, dtype=float).reshape(-1, 2))
+        q = np.ascontiguousarray(np.asarray(points, dtype=float).reshape(-1, nets64[0].dim))
         ph = np.asarray(domain.phi(q), dtype=float)
         with torch.no_grad():
             Xq = torch.as_tensor(q, dtype=torch.float64)

@@ -11,6 +11,23 @@ boundary, so u = g there whatever the network N does; product rule
     Lap u  = Lap g_ext + N Lap phi + 2 grad phi . grad N + phi Lap N,
 with g_ext, phi and their derivatives fixed per point (sampling.point_data).
 
+Stochastic dimension sampling (``laplacian_dims = k``, 0 < k < d; Hu, Shukla, Karniadakis &
+Kawaguchi, "Tackling the curse of dimensionality with physics-informed neural networks", Neural
+Networks 176 (2024) 106369 [volume and article number from memory]): each step draws k of the d
+coordinates I uniformly without replacement (the same I for every point of the step) and the
+network is differentiated along I only, so the forward Laplacian carries k + 2 streams, not
+d + 2. Since P(i in I) = k / d, the estimates
+
+    Lap N ~ (d / k) sum_{i in I} N_ii,   grad phi . grad N ~ (d / k) sum_{i in I} phi_i N_i,
+    |grad u|^2 ~ (d / k) sum_{i in I} (u_i)^2
+
+are unbiased; Lap g_ext and Lap phi are fixed data and stay exact. The squared residual of an
+unbiased Laplacian is a biased estimate of the squared residual (by the estimator's variance),
+which the paper accepts; the subset is a function of (seed, step), so runs are reproducible.
+The sampling applies to the Adam phase only (the paper trains with Adam): L-BFGS needs one
+deterministic objective (a chunked run whose subset changed between chunks diverged, measured:
+nd_harmonic, d = 5, k = 2), so `PINNObjective.before_lbfgs` switches to all d coordinates.
+
 `Collocation` holds the current point sets; `PINNObjective` is the loss on them in the form the
 training driver (`solvers.pinn.train`) takes, with the point resampling and residual-based
 refinement between Adam steps.
@@ -60,17 +77,39 @@ class Loss:
     bc_weight: float = 100.0
     laplacian: str = "forward"      # forward | autograd | func (see model.Network.derivatives)
     area: float = 1.0               # |Omega| for the Ritz energy
+    laplacian_dims: int = 0         # k of d coordinates sampled per step (0 or >= d: all)
+    seed: int = 0                   # with the step, fixes the sampled coordinates
 
-    def solution(self, net, batch: Batch, order: int):
+    def sampled_dims(self, d: int, step: int | None):
+        """The sorted coordinates differentiated at `step` (None: all d, also for step None)."""
+        k = self.laplacian_dims
+        if step is None or k <= 0 or k >= d:
+            return None
+        gen = torch.Generator().manual_seed(int(self.seed) * 1_000_003 + int(step))
+        return sorted(torch.randperm(d, generator=gen)[:k].tolist())
+
+    def solution(self, net, batch: Batch, order: int, step: int | None = None):
         """``(u, grad u, None)`` (order 1) or ``(u, None, Lap u)`` (order 2) of the
-        boundary-treated solution at the batch points (the losses need no more)."""
-        N, gN, lN = net.derivatives(batch.x, order, self.laplacian)
+        boundary-treated solution at the batch points (the losses need no more).
+
+        With coordinate sampling at `step` (module docstring) grad u holds the sampled
+        coordinates scaled by sqrt(d / k) (so that |grad u|^2 is the unbiased estimate) and
+        Lap u is the unbiased estimate."""
+        d = batch.x.shape[1]
+        dims = self.sampled_dims(d, step)
+        N, gN, lN = net.derivatives(batch.x, order, self.laplacian, dims)
+        if dims is None:
+            grad_g, grad_phi, c = batch.grad_g, batch.grad_phi, 1.0
+        else:
+            c = d / len(dims)
+            grad_g = None if batch.grad_g is None else batch.grad_g[:, dims]
+            grad_phi = None if batch.grad_phi is None else batch.grad_phi[:, dims]
         if not self.hard:
-            return (N, gN, None) if order == 1 else (N, None, lN)
+            return (N, gN * c ** 0.5, None) if order == 1 else (N, None, c * lN)
         u = batch.g + batch.phi * N
         if order == 1:
-            return u, batch.grad_g + N[:, None] * batch.grad_phi + batch.phi[:, None] * gN, None
-        lu = batch.lap_g + N * batch.lap_phi + 2.0 * (batch.grad_phi * gN).sum(1) + batch.phi * lN
+            return u, (grad_g + N[:, None] * grad_phi + batch.phi[:, None] * gN) * c ** 0.5, None
+        lu = batch.lap_g + N * batch.lap_phi + c * (2.0 * (grad_phi * gN).sum(1) + batch.phi * lN)
         return u, None, lu
 
     def residual(self, net, batch: Batch) -> torch.Tensor:
@@ -79,12 +118,12 @@ class Loss:
             _, _, lu = self.solution(net, batch, 2)
         return (lu + batch.f).detach()
 
-    def __call__(self, net, batch: Batch, boundary: Boundary | None):
+    def __call__(self, net, batch: Batch, boundary: Boundary | None, step: int | None = None):
         if self.kind == "residual":
-            _, _, lu = self.solution(net, batch, 2)
+            _, _, lu = self.solution(net, batch, 2, step)
             pde = torch.mean((lu + batch.f) ** 2)
         else:
-            u, gu, _ = self.solution(net, batch, 1)
+            u, gu, _ = self.solution(net, batch, 1, step)
             pde = self.area * torch.mean(0.5 * (gu * gu).sum(1) - batch.f * u)
         if self.hard or boundary is None:
             return pde, {"loss_pde": pde, "loss_bc": None}
@@ -155,8 +194,14 @@ class PINNObjective:
     def params(self):
         return list(self.net.parameters())
 
+    sample_dims: bool = True        # coordinate sampling on (Adam phase); before_lbfgs ends it
+
     def __call__(self, step: int):
-        return self.loss(self.net, self.colloc.batch, self.colloc.boundary)
+        return self.loss(self.net, self.colloc.batch, self.colloc.boundary,
+                         step if self.sample_dims else None)
+
+    def before_lbfgs(self) -> None:
+        self.sample_dims = False
 
     def after_adam_step(self, step: int, more: bool) -> None:
         if self.resample_every and step % self.resample_every == 0 and more:

@@ -47,7 +47,8 @@ class Network(nn.Module):
     Parameters
     ----------
     bbox : sequence of float
-        ``(x0, x1, y0, y1)``: the box mapped affinely onto [-1, 1]^2.
+        ``(lo_0, hi_0, ..., lo_{d-1}, hi_{d-1})`` (a domain's ``bbox``; ``(x0, x1, y0, y1)`` in 2-D):
+        the box mapped affinely onto [-1, 1]^d; d = len(bbox) / 2.
     width, depth : int
         Neurons per hidden layer and number of hidden layers.
     activation : {'tanh', 'sin', 'silu'}
@@ -68,12 +69,15 @@ class Network(nn.Module):
         super().__init__()
         if activation not in ACTIVATIONS:
             raise ValueError(f"unknown activation {activation!r}; valid: {', '.join(ACTIVATIONS)}")
-        x0, x1, y0, y1 = (float(v) for v in bbox)
-        self.dim = 2
+        b = [float(v) for v in bbox]
+        if len(b) < 2 or len(b) % 2:
+            raise ValueError(f"bbox must hold (lo, hi) pairs, one per dimension; got {len(b)} numbers")
+        lo, hi = b[0::2], b[1::2]
+        self.dim = len(lo)
         self.activation = activation
         self._act = _ACTIVATION_FUNCTIONS[activation]
-        self.register_buffer("center", torch.tensor([(x0 + x1) / 2, (y0 + y1) / 2], dtype=dtype))
-        self.register_buffer("scale", torch.tensor([2.0 / (x1 - x0), 2.0 / (y1 - y0)], dtype=dtype))
+        self.register_buffer("center", torch.tensor([(a + c) / 2 for a, c in zip(lo, hi)], dtype=dtype))
+        self.register_buffer("scale", torch.tensor([2.0 / (c - a) for a, c in zip(lo, hi)], dtype=dtype))
         if fourier_features > 0:
             B = torch.randn(self.dim, fourier_features, generator=generator, dtype=torch.float64)
             # stored as the weight of a bias-free linear map x -> 2 pi B^T x
@@ -110,23 +114,32 @@ class Network(nn.Module):
         return self.layers[-1](a).squeeze(-1)
 
     # -- value, gradient and Laplacian -------------------------------------------------------------
-    def derivatives(self, x: torch.Tensor, order: int = 2, method: str = "forward"):
+    def derivatives(self, x: torch.Tensor, order: int = 2, method: str = "forward", dims=None):
         """``(u, grad u, lap u)`` (order 2) or ``(u, grad u, None)`` (order 1) at points (n, d).
 
         ``method`` is one of ``forward`` (derivatives propagated with the values), ``autograd``
         (nested torch.autograd.grad with create_graph) or ``func`` (torch.func jacrev/hessian
         under vmap). All three are differentiable with respect to the weights.
+
+        ``dims`` (a sorted sequence of k coordinate indices, or None for all d): only those
+        coordinates are differentiated; ``grad u`` is then (n, k), the partial derivatives along
+        ``dims``, and ``lap u`` the partial sum of the k second derivatives ``u_ii``, i in dims
+        (unscaled; `solvers.pinn.losses.Loss` scales by d / k for the unbiased estimate). The
+        forward method then carries k + 2 streams instead of d + 2.
         """
+        if dims is not None:
+            dims = [int(i) for i in dims]
         if method == "forward":
-            return self._forward_derivatives(x, order)
+            return self._forward_derivatives(x, order, dims)
         if method == "autograd":
-            return self._autograd_derivatives(x, order)
+            return self._autograd_derivatives(x, order, dims)
         if method == "func":
-            return self._func_derivatives(x, order)
+            return self._func_derivatives(x, order, dims)
         raise ValueError(f"unknown Laplacian method {method!r}; valid: {', '.join(LAPLACIAN_METHODS)}")
 
-    def _forward_derivatives(self, x, order):
-        d = self.dim
+    def _forward_derivatives(self, x, order, dims=None):
+        sel = slice(None) if dims is None else dims
+        d = self.dim if dims is None else len(dims)     # differentiated coordinates
         v = (x - self.center) * self.scale
         k = d + order                       # streams: value, d gradient rows, [Laplacian]
         if self.fourier is None:
@@ -134,12 +147,12 @@ class Network(nn.Module):
             # (scale_i W[:, i]) and the Laplacian is zero: the first activation takes them as such
             lin = self.layers[0]
             z = nn.functional.linear(v, lin.weight, lin.bias)
-            gz = (self.scale[:, None] * lin.weight.T)[:, None, :]             # (d, 1, width)
+            gz = (self.scale[sel, None] * lin.weight.T[sel])[:, None, :]      # (d, 1, width)
             S = activate_first(self.activation, z, gz, order)
         else:
             # Fourier features are fixed: their streams carry no gradient to the weights
             zf = v @ self.fourier.T
-            G0 = (self.scale[:, None] * self.fourier.T)[:, None, :]           # (d, 1, m)
+            G0 = (self.scale[sel, None] * self.fourier.T[sel])[:, None, :]    # (d, 1, m)
             c, s = torch.cos(zf), torch.sin(zf)
             streams = [torch.cat([c, s], dim=-1)[None], torch.cat([-s * G0, c * G0], dim=-1)]
             if order == 2:
@@ -162,29 +175,31 @@ class Network(nn.Module):
         lap = Y[d + 1] if order == 2 else None
         return u, grad, lap
 
-    def _autograd_derivatives(self, x, order):
+    def _autograd_derivatives(self, x, order, dims=None):
+        dims = list(range(self.dim)) if dims is None else dims
         x = x.detach().requires_grad_(True)
         u = self.forward(x)
         (grad,) = torch.autograd.grad(u.sum(), x, create_graph=True)
         if order == 1:
-            return u, grad, None
+            return u, grad[:, dims], None
         lap = torch.zeros_like(u)
-        for i in range(self.dim):
+        for i in dims:
             (gi,) = torch.autograd.grad(grad[:, i].sum(), x, create_graph=True)
             lap = lap + gi[:, i]
-        return u, grad, lap
+        return u, grad[:, dims], lap
 
-    def _func_derivatives(self, x, order):
+    def _func_derivatives(self, x, order, dims=None):
         from torch.func import hessian, jacrev, vmap
 
         def single(p):
             return self.forward(p[None])[0]
 
         u = self.forward(x)
-        grad = vmap(jacrev(single))(x)
+        sel = slice(None) if dims is None else dims
+        grad = vmap(jacrev(single))(x)[:, sel]
         if order == 1:
             return u, grad, None
         with warnings.catch_warnings():   # torch's forward-mode decompositions warn about torch.jit
             warnings.simplefilter("ignore", DeprecationWarning)
             H = vmap(hessian(single))(x)
-        return u, grad, H.diagonal(dim1=-2, dim2=-1).sum(-1)
+        return u, grad, H.diagonal(dim1=-2, dim2=-1)[:, sel].sum(-1)

@@ -8,7 +8,7 @@ from __future__ import annotations
 from bench.config import ConfigError, positive
 
 __all__ = ["ACTIVATIONS", "LAPLACIAN_METHODS", "LOSSES", "BOUNDARIES", "SAMPLINGS", "PRECISIONS",
-           "STRATEGIES", "MAX_WIDTH", "MAX_DEPTH", "MAX_POINTS", "MAX_HISTORY", "count",
+           "STRATEGIES", "MAX_DIM", "MAX_WIDTH", "MAX_DEPTH", "MAX_POINTS", "MAX_HISTORY", "count",
            "check_schedule"]
 
 ACTIVATIONS = ("tanh", "sin", "silu")             # model.Network (its torch functions live there)
@@ -25,6 +25,7 @@ MAX_WIDTH = 4096
 MAX_DEPTH = 64
 MAX_POINTS = 10_000_000
 MAX_HISTORY = 10_000        # L-BFGS curvature pairs
+MAX_DIM = 32                # space dimensions (bench.domains.box.MAX_DIM; tensors have d + 2 streams)
 
 
 def count(name: str, value: int, maximum: int | None = None) -> None:

@@ -12,7 +12,7 @@ import numpy as np
 from bench.config import ConfigError, one_of, positive
 from solvers.base import Solution, Solver, Tags
 from solvers.pinn.options import (ACTIVATIONS, BOUNDARIES, LAPLACIAN_METHODS, LOSSES, MAX_DEPTH,
-                                  MAX_POINTS, MAX_WIDTH, PRECISIONS, SAMPLINGS, check_schedule, count)
+                                  MAX_DIM, MAX_POINTS, MAX_WIDTH, PRECISIONS, SAMPLINGS, check_schedule, count)
 from solvers.pinn.runtime import preload_torch, retain_freed_memory
 
 __all__ = ["PINN", "PINNParams", "PINNSoft", "PINNHard", "PINNRitz", "PINNFourier", "PINNRar",
@@ -25,6 +25,9 @@ EVAL_CHUNK = 16384          # points per forward pass in evaluate(): bounds its 
 # from 4.8807e-6 to 4.8806e-6 and the relative L2 error stayed 1.451e-5; at the nightly step
 # budgets no chunk stops early.
 LBFGS_RESTARTS = 0
+# dimensions the family runs in (tests/test_pinn_nd.py checks d = 1, 3, 10 and 20 end to end
+# through the forward Laplacian against torch autograd)
+PINN_DIMS = frozenset(range(1, MAX_DIM + 1))
 
 
 @dataclasses.dataclass
@@ -55,6 +58,7 @@ class PINNParams:
     patience: int = 1000            # stop a phase after this many steps without improvement (0: never)
     plateau_tol: float = 1e-4       # relative improvement that counts
     laplacian: str = "forward"      # forward | autograd | func (bench/perf/pinn_step.py)
+    laplacian_dims: int = 0         # differentiate k random coordinates per step, scaled d/k (0: all)
 
     def __post_init__(self):
         one_of("loss", self.loss, LOSSES)
@@ -78,6 +82,7 @@ class PINNParams:
                               f"got {self.rar_add}")
         check_schedule(self)
         one_of("laplacian", self.laplacian, LAPLACIAN_METHODS)
+        count("laplacian_dims", self.laplacian_dims, maximum=MAX_DIM)
 
 
 class PINN(Solver):
@@ -89,6 +94,11 @@ class PINN(Solver):
     Stat. 6, 2018), with the boundary condition as a penalty or built in as u = g_ext + phi N
     (Sukumar & Srivastava, CMAME 389, 2022). The domain supplies phi, the boundary extension
     g_ext and the samplers, so every domain kind that has them runs every variant.
+
+    Dimensions: inputs are points of R^d for every d in PINN_DIMS (the network, the forward
+    Laplacian and the samplers are written for any d); ``laplacian_dims = k`` differentiates
+    k random coordinates per step with the d / k scaling of Hu, Shukla, Karniadakis & Kawaguchi
+    (Neural Networks, 2024; `solvers.pinn.losses`), so a step costs k + 2 derivative streams.
 
     Reproducibility: the case seed fixes the initialisation and every point set; with the same
     seed and thread count two runs agree to rounding as long as they stop on a step budget or a
@@ -103,8 +113,8 @@ class PINN(Solver):
     Params = PINNParams
     # deterministic: same seed, same thread count -> same result to rounding (see class docstring)
     tags = Tags(kinds=frozenset({"laplace", "poisson"}),
-                domains=frozenset({"rectangle", "disk", "annulus", "polygon", "mask"}),
-                deterministic=True)
+                domains=frozenset({"rectangle", "disk", "annulus", "polygon", "mask", "box", "ball"}),
+                deterministic=True, dims=PINN_DIMS)
 
     @classmethod
     def preload(cls) -> None:
@@ -146,7 +156,8 @@ class PINN(Solver):
                           p.fourier_scale, dtype, gen)
             colloc = Collocation(problem, p.n_interior, p.n_boundary, p.sampling, hard, dtype, rng)
             loss = Loss(kind=p.loss, hard=hard, bc_weight=p.bc_weight, laplacian=p.laplacian,
-                        area=float(problem.domain.area))
+                        area=float(getattr(problem.domain, "volume", problem.domain.area)),
+                        laplacian_dims=p.laplacian_dims, seed=ctx.seed)
             objective = PINNObjective(net, loss, colloc, p.resample_every, p.rar_every,
                                       p.rar_candidates, p.rar_add)
             evaluate = _Evaluator(net, problem, hard, dtype)
@@ -155,7 +166,8 @@ class PINN(Solver):
             result = train(objective, sched, budget.train_cap, ctx, evaluate)
         info = {"params": net.n_parameters, "iterations": result.steps, "dofs": None,
                 **dataclasses.asdict(result), "n_interior": len(colloc.batch),
-                "laplacian": p.laplacian, "precision": p.precision}
+                "laplacian": p.laplacian, "precision": p.precision, "dim": net.dim,
+                "laplacian_dims": p.laplacian_dims or net.dim}
         return Solution(evaluate=evaluate, nodes=None, values=None, info=info)
 
 
@@ -182,7 +194,7 @@ class _Evaluator:
 
         import torch
 
-        pts = np.ascontiguousarray(np.asarray(points, dtype=float).reshape(-1, 2))
+        pts = np.ascontiguousarray(np.asarray(points, dtype=float).reshape(-1, self.net.dim))
         out = np.empty(len(pts))
         # Evaluate the trained weights in float64: the same function, rounded 1e-9 times less,
         # and the value at a point then does not depend on which other points share the call

@@ -3,7 +3,9 @@ with a strong-Wolfe line search, over any `Objective`.
 
 An objective is the parameters and a callable ``objective(step) -> (total, logs)``: the loss
 tensor to minimise and the named terms written to the history (tensors, floats or None). It may
-define ``after_adam_step(step, more)`` (the PINN's point resampling and refinement). The PINN
+define ``after_adam_step(step, more)`` (the PINN's point resampling and refinement) and
+``before_lbfgs()`` (called once when L-BFGS starts: the PINN's coordinate sampling ends there,
+since L-BFGS needs one deterministic objective for its line search and curvature pairs). The PINN
 solvers (`solvers.pinn.losses.PINNObjective`) and the neural eigen-solver (`solvers.pinn.eigen`)
 both train through `train`.
 
@@ -268,6 +270,9 @@ def _lbfgs(run: _Run) -> None:
 
     sched, res, objective, params = run.sched, run.res, run.objective, run.params
     fine = params[0].dtype == torch.float64
+    hook = getattr(objective, "before_lbfgs", None)
+    if hook is not None:
+        hook()
 
     def fresh():
         return torch.optim.LBFGS(params, lr=1.0, max_iter=LBFGS_CHUNK, max_eval=LBFGS_EVALS,
