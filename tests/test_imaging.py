@@ -227,9 +227,8 @@ def test_imaging_run_and_report_end_to_end(tmp_path):
 
 def test_p1_on_triangulated_pixels_is_the_five_point_scheme():
     # P1 stiffness on a uniform right-triangle mesh is the 5-point stencil [common practice;
-    # e.g. Strang & Fix, An Analysis of the Finite Element Method, 1973, from memory for the
-    # section]: for Laplace data
-    # the nodal values of fem_p1 at level 0 equal pixel5's at refine 1.
+    # e.g. Strang & Fix, An Analysis of the Finite Element Method, 1973, from memory]: for
+    # Laplace data the nodal values of fem_p1 at level 0 equal pixel5's at refine 1.
     prob = make_problem({"name": "inpaint", "domain": {"kind": "mask", "shape": "text", "pixels": 32}})
     fem = SOLVERS["fem_p1"](params={"level": 0}).solve(prob.public())
     pix = SOLVERS["pixel5"]().solve(prob.public())
