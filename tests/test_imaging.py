@@ -138,6 +138,16 @@ def test_bad_mask_files_are_refused(tmp_path):
     np.save(tmp_path / "ok.npy", m)
     d = make_domain({"kind": "mask", "path": str(tmp_path / "ok.npy")})
     assert d.area == pytest.approx(20 * d.h ** 2)
+    from skimage.io import imsave
+
+    imsave(tmp_path / "ok.png", (m * 255).astype(np.uint8), check_contrast=False)
+    assert np.array_equal(make_domain({"kind": "mask", "path": str(tmp_path / "ok.png")}).cells, d.cells)
+    imsave(tmp_path / "grey.png", np.arange(64, dtype=np.uint8).reshape(8, 8), check_contrast=False)
+    with pytest.raises(ConfigError, match="`problem.domain.path` .* must be a two-level"):
+        make_domain({"kind": "mask", "path": str(tmp_path / "grey.png")})
+    imsave(tmp_path / "white.png", np.full((8, 8), 255, dtype=np.uint8), check_contrast=False)
+    with pytest.raises(ConfigError, match="all True"):
+        make_domain({"kind": "mask", "path": str(tmp_path / "white.png")})
     with pytest.raises(ConfigError, match="`problem.domain.shape` must be one of"):
         make_domain({"kind": "mask", "shape": "stars"})
 

@@ -106,7 +106,7 @@ def _load(path: str) -> np.ndarray:
         if len(levels) > 2:
             raise ConfigError(f"`path` {path!r} must be a two-level (black/white) image; it has "
                               f"{len(levels)} grey levels")
-        return a == levels.max() if len(levels) == 2 else a.astype(bool) & False
+        return a == levels.max() if len(levels) == 2 else np.full(a.shape, bool(levels[0] > 0))
     raise ConfigError(f"`path` must end in .npy or .png; got {path!r}")
 
 
