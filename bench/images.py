@@ -16,11 +16,19 @@ import numpy as np
 
 from bench.config import ConfigError
 
-__all__ = ["IMAGES", "CHANNELS", "load_image", "LatticeField", "image_to_lattice", "lattice_to_image"]
+__all__ = ["IMAGES", "CHANNELS", "GREY_IMAGES", "check_channel", "load_image", "LatticeField", "image_to_lattice", "lattice_to_image"]
 
 # skimage.data images shipped inside the wheel (data_dir): grey and colour photographs
 IMAGES = ("camera", "moon", "coins", "astronaut", "coffee", "chelsea", "rocket", "immunohistochemistry")
 CHANNELS = ("grey", "red", "green", "blue")
+GREY_IMAGES = ("camera", "moon", "coins")      # the rest are RGB
+
+
+def check_channel(image_field: str, image: str, channel: str) -> None:
+    """ConfigError unless `channel` exists for `image` (grey images have only ``grey``)."""
+    if image in GREY_IMAGES and channel != "grey":
+        raise ConfigError(f"`channel` must be 'grey' for the grey image `{image_field}` = {image!r}; "
+                          f"got {channel!r}")
 
 
 def load_image(name: str, channel: str = "grey", shape: tuple[int, int] | None = None) -> np.ndarray:

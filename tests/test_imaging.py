@@ -254,3 +254,14 @@ def test_hard_boundary_pinn_meets_the_data_on_pixel_edges():
     sol = s.solve(prob.public())
     bp, _ = prob.domain.sample_boundary(200, np.random.default_rng(4))
     assert np.max(np.abs(sol.evaluate(bp) - prob.exact(bp))) < 1e-5
+
+
+@pytest.mark.parametrize("cfg, rule", [
+    ({"name": "inpaint", "image": "camera", "channel": "red"}, "`problem.channel` must be 'grey' for the grey image"),
+    ({"name": "inpaint", "image": "mona"}, "`problem.image` must be one of"),
+    ({"name": "clone", "source": "coffee", "target": "coffee"}, "`problem.source` must differ"),
+    ({"name": "inpaint", "domain": {"kind": "disk"}}, "`problem.domain.kind` must be 'mask'"),
+])
+def test_bad_image_problem_configs(cfg, rule):
+    with pytest.raises(ConfigError, match=rule):
+        make_problem(cfg)

@@ -25,7 +25,7 @@ import numpy as np
 from bench.config import ConfigError, one_of
 from bench.domains import Mask, make_domain
 from bench.fields import Field
-from bench.images import CHANNELS, IMAGES, LatticeField, image_to_lattice, load_image
+from bench.images import CHANNELS, IMAGES, LatticeField, check_channel, image_to_lattice, load_image
 from bench.problems.base import Problem
 
 __all__ = ["ImageProblem", "mask_exact", "inpaint", "clone", "CATALOGUE", "DISCRETE_REFERENCE"]
@@ -149,6 +149,7 @@ class InpaintParams:
     def __post_init__(self):
         one_of("image", self.image, IMAGES)
         one_of("channel", self.channel, CHANNELS)
+        check_channel("image", self.image, self.channel)
 
 
 def inpaint(p: InpaintParams) -> Problem:
@@ -177,6 +178,8 @@ class CloneParams:
         one_of("target", self.target, IMAGES)
         one_of("source", self.source, IMAGES)
         one_of("channel", self.channel, CHANNELS)
+        check_channel("target", self.target, self.channel)
+        check_channel("source", self.source, self.channel)
         if self.source == self.target:
             raise ConfigError(f"`source` must differ from `target` (cloning an image into itself is "
                               f"the identity); both are {self.source!r}")
