@@ -15,6 +15,12 @@ are not harmonic.
 `lapbench tones speed=343` prints, for every ``ok`` eigen record under ``results_dir`` (filters
 ``problem=`` and ``solver=``), each mode's eigenvalue, frequency and ratio to the fundamental,
 beside the reference's.
+
+Flat tori: `lapbench tones speed=1 torus=e8e8,d16plus [max_norm=4]` prints the spectrum of each
+torus R^d / L (bench/lattice.py: eigenvalues 4 pi^2 |w|^2 over the dual lattice, multiplicities
+by exact enumeration) up to |w|^2 <= max_norm, one multiplicity column per torus, the
+frequencies f = c sqrt(lambda) / (2 pi) = c |w|, and whether the tori agree there. A torus is a
+built-in name (e8, e8e8, d16plus, square), conf/torus/<name>.yaml, or a YAML file with `basis`.
 """
 from __future__ import annotations
 
@@ -24,7 +30,7 @@ import sys
 
 from bench.config import ConfigError, build_params, positive
 
-__all__ = ["ToneOptions", "wave_speed", "tone_table", "record_tones", "cmd_tones"]
+__all__ = ["ToneOptions", "wave_speed", "tone_table", "record_tones", "torus_table", "cmd_tones"]
 
 
 @dataclasses.dataclass
@@ -37,8 +43,11 @@ class ToneOptions:
     results_dir: str = "results"
     problem: str | None = None      # a problem label, id or name
     solver: str | None = None
+    torus: str | None = None        # flat tori instead of records: NAME[,NAME...] (bench/lattice.py)
+    max_norm: float = 4.0           # tori: dual vectors up to |w|^2 <= max_norm
 
     def __post_init__(self):
+        positive("max_norm", self.max_norm)
         if self.speed is not None:
             if self.tension is not None or self.density is not None:
                 raise ConfigError("`speed` cannot be combined with `tension`/`density`; give either "
@@ -95,6 +104,63 @@ def record_tones(records, speed: float):
     return out
 
 
+def torus_table(spectra, speed: float):
+    """(DataFrame, verdict) for flat-torus spectra: |w|^2, lambda = 4 pi^2 |w|^2, f = c |w|, and one
+    multiplicity column per torus; the verdict says whether all tori agree up to max_norm."""
+    import numpy as np
+    import pandas as pd
+
+    def key(v):
+        return str(v) if not isinstance(v, float) else f"{v:.12g}"
+
+    rows: dict = {}
+    for sp in spectra:
+        for v, m in zip(sp.norms, sp.multiplicities):
+            rows.setdefault(key(v), {"norm": float(v)})[sp.torus.name] = m
+    order = sorted(rows, key=lambda k: rows[k]["norm"])
+    norm = np.array([rows[k]["norm"] for k in order])
+    lam = 4 * np.pi ** 2 * norm
+    out = pd.DataFrame({"|w|^2": order, "lambda": lam, "frequency": speed * np.sqrt(norm)})
+    names = []
+    for sp in spectra:
+        name = sp.torus.name if sp.torus.name not in names else f"{sp.torus.name}#{len(names)}"
+        names.append(name)
+        out[f"mult {name}"] = [rows[k].get(sp.torus.name, 0) for k in order]
+    cols = [f"mult {n}" for n in names]
+    same = bool((out[cols].nunique(axis=1) == 1).all()) if len(cols) > 1 else None
+    top = min(sp.max_norm for sp in spectra)
+    if same is None:
+        verdict = f"{len(out)} distinct eigenvalues up to |w|^2 <= {top:g}"
+    elif same:
+        verdict = (f"one spectrum: the {len(out)} distinct eigenvalues up to |w|^2 <= {top:g} and their "
+                   f"multiplicities agree ({', '.join(names)})")
+    else:
+        first = out.loc[out[cols].nunique(axis=1) > 1, "|w|^2"].iloc[0]
+        verdict = f"different spectra: the multiplicities first differ at |w|^2 = {first}"
+    return out, verdict
+
+
+def _cmd_tori(opts: ToneOptions, c: float) -> int:
+    from bench.lattice import load_torus, torus_spectrum
+    from bench.report import to_markdown
+
+    tori = [load_torus(t.strip()) for t in opts.torus.split(",") if t.strip()]
+    if not tori:
+        raise ConfigError(f"`torus` must name at least one torus, got {opts.torus!r}")
+    spectra = [torus_spectrum(t, opts.max_norm) for t in tori]
+    table, verdict = torus_table(spectra, c)
+    print(f"flat tori R^d/L: lambda = 4 pi^2 |w|^2 over the dual lattice, f = c sqrt(lambda) / (2 pi), "
+          f"c = {c:.6g}")
+    for t in tori:
+        print(f"  {t.name}: dimension {t.dim}, {'exact rational' if t.exact else 'floating-point'} "
+              f"arithmetic; {t.source}")
+    print()
+    print(to_markdown(table))
+    print(verdict)
+    sys.stdout.flush()
+    return 0
+
+
 def cmd_tones(argv: list[str]) -> int:
     """`lapbench tones speed=C | tension=T density=RHO [results_dir=..] [problem=..] [solver=..]`."""
     from bench.records import load_records
@@ -104,9 +170,9 @@ def cmd_tones(argv: list[str]) -> int:
     for a in argv:
         if "=" not in a or a.startswith("-"):
             raise ConfigError(f"`tones` takes key=value arguments (speed, tension, density, results_dir, "
-                              f"problem, solver); got {a!r}")
+                              f"problem, solver, torus, max_norm); got {a!r}")
         key, _, v = a.partition("=")
-        if key in ("speed", "tension", "density"):
+        if key in ("speed", "tension", "density", "max_norm"):
             try:
                 v = float(v)
             except ValueError:
@@ -114,6 +180,8 @@ def cmd_tones(argv: list[str]) -> int:
         values[key] = v
     opts = build_params(ToneOptions, values)
     c = wave_speed(opts)
+    if opts.torus is not None:
+        return _cmd_tori(opts, c)
     recs = load_records(opts.results_dir, problem=opts.problem, solver=opts.solver)
     tables = record_tones(recs, c)
     if not tables:
