@@ -23,7 +23,7 @@ commands:
   report   tables and figures of the records (options: report.<key>=...)
   check    compare a suite's records with results/baseline/<suite>.json (exit 0 / 1 regression)
   baseline write results/baseline/<suite>.json from a suite's records (options: check.<key>=...)
-  tones    membrane frequencies of eigen records (speed=C or tension=T density=RHO); flat tori: torus=A,B
+  tones    frequencies: eigen records (speed=C or tension=T density=RHO), flat tori (torus=A,B)
   claim    a claimed error and time against the best classical method here (claim.error= claim.time=)
   conform  run the solver conformance checks on one solver config (a plug-in's: --config-dir DIR)
 
