@@ -6,7 +6,9 @@ for cloning the target), the discrete reference (the 5-point solution at pixel r
 direct solve, what every error of these records is measured against) and each chosen method's
 reconstruction; the second row the original photograph (inpainting) or the guidance source
 (cloning) and each method's error image (method minus discrete reference on the hole's pixels,
-diverging map centred at zero, one scale per panel). Chosen methods: per solver the most
+diverging map centred at zero, one scale per panel); for the red channel of a colour
+photograph whose green and blue runs are recorded too, a third row with the colour composites.
+Chosen methods: per solver the most
 accurate run by the report's metric, at most `MAX_METHODS`, most accurate first. The problem is
 rebuilt from the record's problem config (the photographs are package data; the reference is
 recomputed, a direct solve of the hole's pixels) so that records store only the hole's values.
@@ -49,6 +51,36 @@ def _error_picture(prob, values) -> np.ndarray:
     return lattice_to_image(E)
 
 
+def _channel_siblings(recs, i) -> dict | None:
+    """For a red-channel record: the green and blue records of the same problem config, solver
+    and resolution ({channel: record index}), or None when either is missing."""
+    import json
+
+    def key(r):
+        c = {k: v for k, v in (r["problem"].get("config") or {}).items() if k != "channel"}
+        return (json.dumps(c, sort_keys=True, default=str), r["solver"]["name"],
+                r["solver"].get("resolution_label"), json.dumps(r["solver"].get("config"), sort_keys=True, default=str))
+
+    r0 = recs[i]
+    if (r0["problem"].get("config") or {}).get("channel") != "red":
+        return None
+    k0, out = key(r0), {"red": i}
+    for j, r in enumerate(recs):
+        ch = (r["problem"].get("config") or {}).get("channel")
+        if ch in ("green", "blue") and ch not in out and is_image_record(r) and key(r) == k0:
+            out[ch] = j
+    return out if len(out) == 3 else None
+
+
+def _composite(pictures) -> np.ndarray:
+    """RGB image from three channel pictures; blank (NaN) pixels in magenta."""
+    rgb = np.stack(pictures, axis=-1)
+    blank = np.isnan(rgb).any(axis=-1)
+    rgb = np.nan_to_num(rgb)
+    rgb[blank] = (1.0, 0.0, 1.0)
+    return np.clip(rgb, 0.0, 1.0)
+
+
 def fig_images(pid, recs, frame, cfg, folder, figure_type, save):
     """The reconstructed-image and error-image figure of problem id `pid`, or None."""
     import matplotlib.pyplot as plt
@@ -71,9 +103,12 @@ def fig_images(pid, recs, frame, cfg, folder, figure_type, save):
     prob = make_problem(recs[chosen[0]]["problem"]["config"])
     is_clone = prob.truth is None
     ncols = 2 + len(chosen)
+    siblings = {i: _channel_siblings(recs, i) for i in chosen}
+    colour = {i: sib for i, sib in siblings.items() if sib is not None}
+    nrows = 3 if colour else 2
     w = cfg.figures.width
-    fig, axes = plt.subplots(2, ncols, figsize=(1.5 * w, 1.5 * w / ncols * 2.6), layout="constrained",
-                             squeeze=False)
+    fig, axes = plt.subplots(nrows, ncols, figsize=(1.5 * w, 1.5 * w / ncols * 1.3 * nrows),
+                             layout="constrained", squeeze=False)
     grey = plt.get_cmap("gray").with_extremes(bad="#d62728")      # the blank hole in red
     show = dict(cmap=grey, vmin=0.0, vmax=1.0, interpolation="nearest")
     axes[0, 0].imshow(_picture(prob), **show)
@@ -113,6 +148,22 @@ def fig_images(pid, recs, frame, cfg, folder, figure_type, save):
         cb = fig.colorbar(im, ax=ax, shrink=0.9, orientation="horizontal", location="bottom")
         cb.ax.tick_params(labelsize=TITLE_SIZE - 1)
         cb.formatter.set_powerlimits((-2, 3))
+    if colour:   # per-channel records of a colour photograph: the composite of the three channels
+        first = next(iter(colour.values()))
+        probs = {ch: make_problem(recs[first[ch]]["problem"]["config"]) for ch in ("red", "green", "blue")}
+        axes[2, 0].imshow(_composite([_picture(probs[ch]) for ch in probs]), interpolation="nearest")
+        axes[2, 0].set_title("colour input, hole in magenta", fontsize=TITLE_SIZE)
+        axes[2, 1].imshow(_composite([_picture(probs[ch], probs[ch].reference_values) for ch in probs]),
+                          interpolation="nearest")
+        axes[2, 1].set_title("colour reference", fontsize=TITLE_SIZE)
+        for k, i in enumerate(chosen):
+            ax = axes[2, 2 + k]
+            if i not in colour:
+                ax.set_visible(False)
+                continue
+            vals = {ch: np.asarray(recs[colour[i][ch]]["metrics"]["image"]["hole_values"], float) for ch in probs}
+            ax.imshow(_composite([_picture(probs[ch], vals[ch]) for ch in probs]), interpolation="nearest")
+            ax.set_title(f"{recs[i]['solver']['name']}, colour\n(three channel runs)", fontsize=TITLE_SIZE)
     for ax in axes.ravel():
         ax.set_xticks([])
         ax.set_yticks([])
@@ -127,5 +178,7 @@ def fig_images(pid, recs, frame, cfg, folder, figure_type, save):
                "(at most three). Errors are against the discrete reference: the 5-point solution at pixel "
                "resolution by a direct solve (white: pixels outside the hole; one colour scale per panel). "
                + ("The second row's first panel is the guidance source of the cloning."
-                  if is_clone else "PSNR is against the photograph's original pixels in the hole."))
+                  if is_clone else "PSNR is against the photograph's original pixels in the hole.")
+               + (" Third row: the colour composite of the red, green and blue runs of the same "
+                  "configuration (colour images are solved per channel)." if colour else ""))
     return figure_type(key, f"Reconstructed and error images: {pid}", caption, save(fig, folder, key, cfg), pid)
