@@ -265,3 +265,19 @@ def test_hard_boundary_pinn_meets_the_data_on_pixel_edges():
 def test_bad_image_problem_configs(cfg, rule):
     with pytest.raises(ConfigError, match=rule):
         make_problem(cfg)
+
+
+def test_colour_composite_finds_the_three_channel_runs():
+    from bench.report.images import _channel_siblings, _composite
+
+    def rec(channel, solver="pixel5"):
+        return {"status": "ok", "metrics": {"image": {"hole_values": [0.5]}},
+                "problem": {"config": {"name": "inpaint", "image": "astronaut", "channel": channel}},
+                "solver": {"name": solver, "resolution_label": "refine=1", "config": {"name": solver}}}
+
+    recs = [rec("red"), rec("green"), rec("blue", "fem_p1"), rec("blue"), rec("grey")]
+    assert _channel_siblings(recs, 0) == {"red": 0, "green": 1, "blue": 3}
+    assert _channel_siblings(recs, 1) is None                      # only red records lead
+    assert _channel_siblings(recs[:3], 0) is None                  # no pixel5 blue run
+    rgb = _composite([np.array([[0.2, np.nan]]), np.array([[0.4, 0.1]]), np.array([[0.6, 0.1]])])
+    np.testing.assert_allclose(rgb, [[[0.2, 0.4, 0.6], [1.0, 0.0, 1.0]]])
