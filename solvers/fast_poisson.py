@@ -61,21 +61,25 @@ def box_eigenvalues(ns, hs, compact: bool) -> np.ndarray:
     """
     d = len(ns)
     a = [dirichlet_eigenvalues(int(n) - 1, h) for n, h in zip(ns, hs)]
-    shape = [len(v) for v in a]
 
     def along(i, v):
         return v.reshape([-1 if j == i else 1 for j in range(d)])
 
-    lam = np.zeros(shape)
+    def outer_sum(vs):
+        # broadcast sums grow axis by axis: only the last one has the full size
+        out = along(0, vs[0])
+        for i in range(1, d):
+            out = out + along(i, vs[i])
+        return out
+
     if not compact:
-        for i in range(d):
-            lam += along(i, a[i])
-        return lam
+        return outer_sum(a)
     p = [1.0 - h ** 2 * v / 12.0 for v, h in zip(a, hs)]
-    for i in range(d):
-        lam += along(i, a[i] / p[i])
-    for i in range(d):
-        lam *= along(i, p[i])
+    lam = outer_sum([v / q for v, q in zip(a, p)])
+    prod = along(0, p[0])
+    for i in range(1, d):
+        prod = prod * along(i, p[i])
+    lam *= prod
     return lam
 
 

@@ -252,18 +252,20 @@ def box_operator(U: np.ndarray, hs, compact: bool) -> np.ndarray:
 
 def box_fold_boundary(rhs: np.ndarray, Ub: np.ndarray, hs, compact: bool) -> None:
     """rhs -= A(Ub) where Ub is zero inside: only the interior nodes next to a face see it, so A
-    is applied on the 3-node-wide slabs along each face (each slab gives the exact value of
-    A(Ub) on its interior layer; overlapping layers get the same value twice)."""
+    is applied on the 3-node-wide slab along each face, which gives the exact value of A(Ub) on
+    the interior layer next to that face. Each such node is updated once: the layer of face k
+    leaves out the nodes already on the layers of the faces j < k."""
     d = Ub.ndim
-    corr = np.zeros(rhs.shape)
     for k in range(d):
         for side in (0, -1):
-            slab = tuple(slice(0, 3) if (j == k and side == 0) else (slice(-3, None) if j == k else slice(None))
+            if side == -1 and rhs.shape[k] == 1:
+                break                      # one interior layer: both faces' slabs are the same
+            slab = tuple((slice(0, 3) if side == 0 else slice(-3, None)) if j == k else slice(None)
                          for j in range(d))
             val = box_operator(Ub[slab], hs, compact)
-            layer = tuple(side if j == k else slice(None) for j in range(d))
-            corr[layer] = val[tuple(0 if j == k else slice(None) for j in range(d))]
-    rhs -= corr
+            keep = tuple(0 if j == k else (slice(1, -1) if j < k else slice(None)) for j in range(d))
+            layer = tuple(side if j == k else (slice(1, -1) if j < k else slice(None)) for j in range(d))
+            rhs[layer] -= val[keep]
 
 
 def box_rhs(axes: list[np.ndarray], f, g, compact: bool) -> tuple[np.ndarray, np.ndarray]:

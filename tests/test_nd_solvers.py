@@ -20,7 +20,8 @@ from solvers import SOLVERS
 from solvers.base import Budget
 from solvers.fast_poisson import box_eigenvalues, box_solve
 from solvers.fd import box_matrix
-from solvers.grid import TensorLagrange, apply_stencil, box_axes, box_operator, box_rhs, default_n
+from solvers.grid import (TensorLagrange, apply_stencil, box_axes, box_fold_boundary, box_operator, box_rhs,
+                          default_n)
 from solvers.linalg import solve_spd
 from solvers.sparse_grid import combination_levels, combination_solve, combine
 from solvers.spectral import TensorBarycentric, cheb_axes, cheb_box_solve
@@ -73,6 +74,20 @@ def test_box_eigenvalues_match_dense_operator(compact):
     np.testing.assert_allclose(np.sort(box_eigenvalues(ns, hs, compact).ravel()), np.linalg.eigvalsh(A),
                                rtol=1e-10)
     assert box_eigenvalues([4] * 8, [0.25] * 8, compact).min() > 0
+
+
+@pytest.mark.parametrize("ns", [[2, 3, 5], [3, 2, 2, 4], [6], [4, 5]])
+@pytest.mark.parametrize("compact", [False, True])
+def test_boundary_fold_equals_whole_operator(ns, compact):
+    """Folding the boundary data on face slabs gives the operator applied to the whole grid of
+    boundary values (one or two interior layers per axis included)."""
+    axes = box_axes(np.array([[0.0, 1.0]] * len(ns)), ns)
+    hs = [a[1] - a[0] for a in axes]
+    Ub = np.random.default_rng(2).standard_normal([n + 1 for n in ns])
+    Ub[(slice(1, -1),) * len(ns)] = 0.0
+    rhs = np.zeros([n - 1 for n in ns])
+    box_fold_boundary(rhs, Ub, hs, compact)
+    np.testing.assert_allclose(rhs, -box_operator(Ub, hs, compact), rtol=1e-12, atol=1e-9)
 
 
 def test_fd5_matrix_is_the_fst5_system():
