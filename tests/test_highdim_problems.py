@@ -313,3 +313,47 @@ def test_eigen_problems_in_high_dimension_are_cheap_and_complete():
         lam = p.eigenvalues
         assert len(lam) >= 200 and np.all(np.diff(lam) >= 0)
         assert np.all(np.abs(lam[200:] - lam[199]) <= 1e-9 * lam[199])   # only the k-th cluster beyond k
+
+
+def _fd_laplacian_columns(fn, pts, h):
+    """Laplace of every column of fn(points) -> (m, K) by fourth-order central differences
+    (common practice), all columns per evaluation."""
+    u0 = fn(pts)
+    out = np.zeros_like(u0)
+    for i in range(pts.shape[1]):
+        e = np.zeros(pts.shape[1])
+        e[i] = h
+        out += (-fn(pts + 2 * e) + 16 * fn(pts + e) - 30 * u0 + 16 * fn(pts - e) - fn(pts - 2 * e)) / (12 * h * h)
+    return out
+
+
+@pytest.mark.parametrize("dim, k", [(2, 8), (3, 12), (4, 10), (7, 12)])
+def test_eigen_ball_modes_are_eigenfunctions_spanning_each_cluster(dim, k):
+    p = make_problem({"name": "eigen_ball", "dim": dim, "k": k})
+    pts = _interior(p.domain, 60, margin=0.1)
+    M = p.modes(pts)
+    assert M.shape == (len(pts), len(p.eigenvalues))
+    lap = _fd_laplacian_columns(p.modes, pts, 1e-3)
+    scale = np.abs(M).max(axis=0)
+    assert np.all(np.abs(-lap - p.eigenvalues * M).max(axis=0) <= 1e-6 * p.eigenvalues * scale)
+    bp, _ = p.domain.sample_boundary(100, np.random.default_rng(2))
+    assert np.abs(p.modes(bp)).max() < 1e-12 * scale.max()          # Dirichlet condition
+    es = p.eval_set(seed=0)
+    assert np.linalg.matrix_rank(p.modes(es.points)) == len(p.eigenvalues)   # a basis of each eigenspace
+
+
+def test_eigen_metric_accepts_any_basis_of_a_ball_eigenspace():
+    # rotate the reference modes inside each cluster: eigenvalue error 0 and every angle 0
+    from bench.metrics import clusters
+
+    p = make_problem({"name": "eigen_ball", "dim": 3, "k": 9})
+    Q = np.eye(len(p.eigenvalues))
+    rng = np.random.default_rng(7)
+    for s, e in clusters(p.eigenvalues, 1e-9):
+        Q[s:e, s:e] = np.linalg.qr(rng.standard_normal((e - s, e - s)))[0]
+    sol = Solution(evaluate=lambda q: p.modes(q)[:, 0], eigenvalues=p.eigenvalues.copy(),
+                   modes=lambda q: p.modes(q) @ Q)
+    m = measure(p, sol, p.eval_set(seed=1))
+    assert m["eig_rel_max"] == 0 and m["mode_angle_max"] < 1e-6
+    bad = Solution(evaluate=sol.evaluate, eigenvalues=p.eigenvalues.copy(), modes=lambda q: p.modes(q)[:, ::-1])
+    assert measure(p, bad, p.eval_set(seed=1))["mode_angle_max"] > 1.0   # wrong eigenspaces: far off

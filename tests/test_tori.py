@@ -160,3 +160,8 @@ def test_tones_shows_one_spectrum_for_milnors_pair(lapbench_cmd):
     q = subprocess.run(lapbench_cmd + ["tones", "speed=1", "torus=e8,square"], capture_output=True, text=True,
                        timeout=300)
     assert q.returncode == 0 and "different spectra: the multiplicities first differ at |w|^2 = 1" in q.stdout
+
+
+def test_absurd_bounds_are_refused_up_front():
+    with pytest.raises(ConfigError, match=r"^`max_norm` = 12 would count about .* dual vectors of 'e8e8'"):
+        torus_spectrum(load_torus("e8e8"), 12)

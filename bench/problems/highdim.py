@@ -15,6 +15,7 @@ with the knob ``draw``: the same draw gives the same problem on every machine.
 from __future__ import annotations
 
 import dataclasses
+import itertools
 import math
 from typing import Literal
 
@@ -28,7 +29,7 @@ from bench.problems.base import Problem
 from bench.problems.eigen import CLOSED_FORM_RTOL, EigenProblem, _check_k, _complete_cluster
 
 __all__ = ["nd_gauss", "nd_harmonic", "nd_pole", "nd_waves", "eigen_box", "eigen_ball", "box_spectrum",
-           "ball_spectrum", "bessel_zeros", "harmonic_multiplicity", "CATALOGUE"]
+           "ball_spectrum", "bessel_zeros", "harmonic_multiplicity", "harmonic_basis", "CATALOGUE"]
 
 
 def _check_dim(dim, minimum: int = 1):
@@ -398,16 +399,86 @@ def ball_spectrum(dim: int, k: int):
     return lam[:n], rows[:n]
 
 
+def harmonic_basis(dim: int, l: int) -> tuple[np.ndarray, np.ndarray]:
+    """A basis of the homogeneous harmonic polynomials of degree l in R^dim.
+
+    Returns (exponents (M, d) of the degree-l monomials, coefficients (M, N)): column j is the
+    j-th basis polynomial sum_a C[a, j] x^exponents[a]. The coefficients span the null space of
+    the Laplacian as a map from degree-l to degree-(l-2) monomials (Laplace x^a = sum_i a_i
+    (a_i - 1) x^(a - 2 e_i)), orthonormal by SVD (scipy.linalg.null_space); N is the harmonic
+    multiplicity (the Laplacian maps onto the degree-(l-2) polynomials [common practice]).
+    """
+    from scipy.linalg import null_space
+
+    def monomials(deg):
+        out = []
+        for combo in itertools.combinations_with_replacement(range(dim), deg):
+            a = [0] * dim
+            for i in combo:
+                a[i] += 1
+            out.append(tuple(a))
+        return out
+
+    top = monomials(l)
+    if l < 2:
+        return np.array(top, dtype=np.int64).reshape(len(top), dim), np.eye(len(top))
+    low = {a: r for r, a in enumerate(monomials(l - 2))}
+    L = np.zeros((len(low), len(top)))
+    for c, a in enumerate(top):
+        for i in range(dim):
+            if a[i] >= 2:
+                b = list(a)
+                b[i] -= 2
+                L[low[tuple(b)], c] += a[i] * (a[i] - 1)
+    return np.array(top, dtype=np.int64), null_space(L)
+
+
+def _ball_modes(dim: int, rows: np.ndarray):
+    """modes(points) -> (m, K) for the (l, s) rows of `ball_spectrum` (equal rows are one
+    eigenspace, in order): J_nu(j r) / r^nu h(x), nu = l + d/2 - 1, h over `harmonic_basis`."""
+    from scipy.special import gamma, jv
+
+    if dim == 1:                                   # the interval (-1, 1): sin(m pi (x + 1) / 2)
+        m = np.arange(1, len(rows) + 1)
+        return lambda pts: np.sin(np.pi * m[None, :] * (np.asarray(pts, float)[:, :1] + 1) / 2)
+    groups = []                                    # (l, j, nu, exponents, coefficients)
+    for i, (l, s) in enumerate(rows.tolist()):
+        if i and rows[i - 1].tolist() == [l, s]:
+            continue
+        nu = l + dim / 2 - 1
+        j = float(bessel_zeros(nu, s)[-1])
+        groups.append((l, j, nu) + harmonic_basis(dim, l))
+
+    def modes(pts):
+        pts = np.asarray(pts, dtype=float)
+        r = np.linalg.norm(pts, axis=1)
+        cols = []
+        for l, j, nu, expo, coef in groups:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                radial = np.where(r > 1e-12, jv(nu, j * r) / np.maximum(r, 1e-300) ** nu,
+                                  (j / 2) ** nu / gamma(nu + 1))     # the limit at r = 0
+            mono = np.ones((len(pts), len(expo)))
+            for i in range(dim):
+                if expo[:, i].any():
+                    mono *= pts[:, i:i + 1] ** expo[None, :, i]
+            cols.append(radial[:, None] * (mono @ coef))
+        return np.hstack(cols)
+
+    return modes
+
+
 def eigen_ball(p: DimEigenParams) -> EigenProblem:
     """Dirichlet eigenvalues of the unit ball in R^d: j_{l+d/2-1,s}^2 with multiplicity
     C(l+d-1, d-1) - C(l+d-3, d-1) (see `ball_spectrum`); Bessel zeros from scipy.special
     (jn_zeros for integer order, Brent's method on jv for half-integer order). d = 3:
-    lambda_1 = pi^2 (j_{1/2,1} = pi). No reference modes (eigenvalue errors only)."""
+    lambda_1 = pi^2 (j_{1/2,1} = pi). Modes r^(1-d/2) J_nu(j r) Y_l(x/r) = J_nu(j r) r^-nu h(x),
+    nu = l + d/2 - 1, h any homogeneous harmonic polynomial of degree l (`harmonic_basis`) [common
+    practice]."""
     lam, rows = ball_spectrum(p.dim, p.k)
     src = ("closed form: lambda = j_{l+d/2-1,s}^2 (scipy.special Bessel zeros), multiplicity "
-           "C(l+d-1,d-1) - C(l+d-3,d-1)")
+           "C(l+d-1,d-1) - C(l+d-3,d-1), modes J_nu(j r) r^-nu h(x) with h harmonic polynomials")
     return EigenProblem("eigen_ball", "eigen", unit_ball(p.dim), params={"dim": p.dim, "k": p.k}, source=src,
-                        n_eigs=p.k, eigenvalues=lam, modes=None,
+                        n_eigs=p.k, eigenvalues=lam, modes=_ball_modes(p.dim, rows),
                         reference={"kind": "closed form", "source": src, "indices": rows.tolist()})
 
 
