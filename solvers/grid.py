@@ -390,7 +390,7 @@ def box_nodes(axes: list[np.ndarray], U: np.ndarray) -> tuple[np.ndarray | None,
         return None, None
     pick = np.unique(np.linspace(0, total - 1, min(total, MAX_REPORTED_NODES)).astype(np.int64))
     idx = np.unravel_index(pick, inner.shape)
-    return np.column_stack([a[1:-1][i] for a, i in zip(axes, idx)]), inner.ravel()[pick]
+    return np.column_stack([a[1:-1][i] for a, i in zip(axes, idx)]), inner[idx]
 
 
 def box_solution(axes: list[np.ndarray], U: np.ndarray, degree: int, info: dict):
