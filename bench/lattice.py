@@ -41,7 +41,8 @@ import numpy as np
 from bench.config import ConfigError
 
 __all__ = ["Torus", "TorusSpectrum", "BUILTIN", "d_plus_basis", "direct_sum", "parse_basis", "gram",
-           "inverse", "short_vector_counts", "torus_spectrum", "load_torus", "TORUS_DIR", "MAX_TORUS_DIM"]
+           "inverse", "short_vector_counts", "vectors_of_norm", "sublattice_index", "shortest_vectors_index",
+           "torus_spectrum", "load_torus", "TORUS_DIR", "MAX_TORUS_DIM"]
 
 CHUNK = 1 << 17          # partial vectors expanded at once (bounds the enumeration's memory)
 MAX_TORUS_DIM = 32
@@ -149,13 +150,9 @@ def inverse(M: list[list[Fraction]]) -> list[list[Fraction]]:
 
 
 # -- enumeration -------------------------------------------------------------------------------------
-def short_vector_counts(A: np.ndarray, bound: float, exact: bool = True) -> dict:
-    """Counts of integer vectors n by Q(n) = n^T A n for all n with Q(n) <= bound (n = 0 included).
-
-    A: symmetric positive definite; integer entries when `exact` (then Q is computed in int64
-    and the keys are ints), floats otherwise. Fincke-Pohst enumeration, vectorised (module
-    docstring).
-    """
+def _enumerate(A: np.ndarray, bound: float, exact: bool, sink) -> None:
+    """Every integer vector n with Q(n) = n^T A n <= bound, passed in chunks to
+    ``sink(X, q)`` (X (m, d) coordinates, q their norms: exact int64 when `exact`)."""
     A = np.asarray(A, dtype=np.int64 if exact else float)
     d = len(A)
     try:
@@ -164,24 +161,18 @@ def short_vector_counts(A: np.ndarray, bound: float, exact: bool = True) -> dict
         raise ValueError("the quadratic form is not positive definite (the basis is degenerate)") from None
     r2 = np.diag(R) ** 2
     mu = R / np.diag(R)[:, None]                              # mu[i, j] = r_ij / r_ii
+    # the float factor only prunes: a margin keeps every vector whose exact norm is in range
     margin = 1e-7 * max(bound, 1.0) + (0.5 if exact else 0.0)
     limit = bound + margin
-    counts: dict = {}
     state = {"found": 0}
 
     def finish(X):
-        if exact:
-            Xi = X.astype(np.int64)
-            q = np.einsum("ij,ij->i", Xi @ A, Xi)
-            q = q[q <= bound]
-            vals, cnt = np.unique(q, return_counts=True)
-            for v, c in zip(vals.tolist(), cnt.tolist()):
-                counts[int(v)] = counts.get(int(v), 0) + int(c)
-        else:
-            q = np.einsum("ij,ij->i", X @ A, X)
-            for v in q[q <= bound * (1 + 1e-12)].tolist():
-                counts[v] = counts.get(v, 0) + 1
-        state["found"] += len(X)
+        q = np.einsum("ij,ij->i", X @ A, X)
+        keep = q <= (bound if exact else bound * (1 + 1e-12))
+        state["found"] += int(keep.sum())
+        if state["found"] > MAX_VECTORS:
+            raise ValueError(f"more than {MAX_VECTORS} lattice vectors below the bound; lower it")
+        sink(X[keep], q[keep])
 
     def descend(i, S, T, X):
         # T[:, k] = sum_{j > i} mu[k, j] x_j for k <= i; X holds x_{i+1} .. x_{d-1} (columns i+1..)
@@ -199,8 +190,7 @@ def short_vector_counts(A: np.ndarray, bound: float, exact: bool = True) -> dict
             # parent rows [start, stop) expand to at most CHUNK children (at least one parent)
             base = ends[start - 1] if start else 0
             stop = max(int(np.searchsorted(ends, base + CHUNK, side="right")), start + 1)
-            seg = slice(start, stop)
-            cnt = n[seg]
+            cnt = n[start:stop]
             total = int(cnt.sum())
             if total:
                 idx = np.repeat(np.arange(start, stop), cnt)
@@ -212,13 +202,66 @@ def short_vector_counts(A: np.ndarray, bound: float, exact: bool = True) -> dict
                 X2 = X[idx].copy()
                 X2[:, i] = x
                 T2 = T[idx, :i] + x[:, None] * mu[:i, i][None, :]
-                if state["found"] + len(x) > MAX_VECTORS and i == 0:
-                    raise ValueError(f"more than {MAX_VECTORS} lattice vectors below the bound; lower it")
                 descend(i - 1, S2, T2, X2)
             start = stop
 
     descend(d - 1, np.zeros(1), np.zeros((1, d)), np.zeros((1, d), dtype=np.int64 if exact else float))
+
+
+def short_vector_counts(A: np.ndarray, bound: float, exact: bool = True) -> dict:
+    """Counts of integer vectors n by Q(n) = n^T A n for all n with Q(n) <= bound (n = 0 included).
+
+    A: symmetric positive definite; integer entries when `exact` (then Q is computed in int64
+    and the keys are ints), floats otherwise. Fincke-Pohst enumeration, vectorised (module
+    docstring).
+    """
+    counts: dict = {}
+
+    def count(X, q):
+        vals, cnt = np.unique(q, return_counts=True)
+        for v, c in zip(vals.tolist(), cnt.tolist()):
+            counts[v] = counts.get(v, 0) + int(c)
+
+    _enumerate(A, bound, exact, count)
     return dict(sorted(counts.items()))
+
+
+def vectors_of_norm(A: np.ndarray, q: int) -> np.ndarray:
+    """All integer vectors n with n^T A n == q exactly (A an integer form), shape (N, d)."""
+    found = []
+    _enumerate(A, q, True, lambda X, norms: found.append(X[norms == q]))
+    return np.vstack(found) if found else np.zeros((0, len(A)), dtype=np.int64)
+
+
+def sublattice_index(vectors) -> int:
+    """Index in Z^d of the lattice the integer `vectors` (rows) generate; 0 if they do not span.
+
+    Integer row reduction (Euclid's algorithm on each column, Hermite's normal form up to signs
+    [common practice]) in Python integers: the index is the product of the pivots.
+    """
+    rows = [list(map(int, r)) for r in np.asarray(vectors).tolist() if any(r)]
+    d = len(np.asarray(vectors)[0]) if len(vectors) else 0
+    index = 1
+    for c in range(d):
+        active = [r for r in rows if r[c] != 0]
+        rest = [r for r in rows if r[c] == 0]
+        while len(active) > 1:
+            active.sort(key=lambda r: abs(r[c]))
+            p = active[0]
+            nxt = [p]
+            for r in active[1:]:
+                f = r[c] // p[c]
+                r = [a - f * b for a, b in zip(r, p)]
+                if r[c] != 0:
+                    nxt.append(r)
+                elif any(r):
+                    rest.append(r)
+            active = nxt
+        if not active:
+            return 0
+        index *= abs(active[0][c])
+        rows = rest
+    return index
 
 
 # -- tori ----------------------------------------------------------------------------------------------
@@ -341,3 +384,20 @@ def load_torus(spec: str) -> Torus:
         return Torus(name, tuple(tuple(r) for r in make()), str(cfg.get("source", src)))
     basis = parse_basis(cfg["basis"])
     return Torus(name, tuple(tuple(r) for r in basis), str(cfg.get("source", "")))
+
+
+def shortest_vectors_index(torus: Torus) -> tuple[Fraction, int, int]:
+    """(norm, count, index) of the shortest nonzero dual vectors and the index of the sublattice of
+    L* they generate (exact bases only): an isometry invariant. For Milnor's pair the shortest
+    vectors (norm 2, 480 of them: the roots) generate all of E_8 + E_8 (index 1) but only D_16
+    inside D_16^+ (index 2), so the two tori are not isometric though isospectral."""
+    if not torus.exact:
+        raise ConfigError(f"`torus` {torus.name!r}: the shortest-vector index needs an exact (rational) basis")
+    Gi = inverse(gram(torus.basis))
+    D = math.lcm(*(v.denominator for row in Gi for v in row))
+    A = np.array([[int(v * D) for v in row] for row in Gi], dtype=np.int64)
+    q = min(int(A[i, i]) for i in range(len(A)))           # some vector has this norm: a bound
+    counts = short_vector_counts(A, q)
+    q1 = min(v for v in counts if v > 0)
+    vecs = vectors_of_norm(A, q1)
+    return Fraction(q1, D), len(vecs), sublattice_index(vecs)

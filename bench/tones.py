@@ -19,7 +19,9 @@ beside the reference's.
 Flat tori: `lapbench tones speed=1 torus=e8e8,d16plus [max_norm=4]` prints the spectrum of each
 torus R^d / L (bench/lattice.py: eigenvalues 4 pi^2 |w|^2 over the dual lattice, multiplicities
 by exact enumeration) up to |w|^2 <= max_norm, one multiplicity column per torus, the
-frequencies f = c sqrt(lambda) / (2 pi) = c |w|, and whether the tori agree there. A torus is a
+frequencies f = c sqrt(lambda) / (2 pi) = c |w|, and whether the tori agree there; for exact
+bases also the index of the sublattice that each torus's shortest dual vectors generate, an
+isometry invariant (1 for E8 + E8, 2 for D16+: one spectrum, two tori). A torus is a
 built-in name (e8, e8e8, d16plus, square), conf/torus/<name>.yaml, or a YAML file with `basis`.
 """
 from __future__ import annotations
@@ -141,7 +143,7 @@ def torus_table(spectra, speed: float):
 
 
 def _cmd_tori(opts: ToneOptions, c: float) -> int:
-    from bench.lattice import load_torus, torus_spectrum
+    from bench.lattice import load_torus, shortest_vectors_index, torus_spectrum
     from bench.report import to_markdown
 
     tori = [load_torus(t.strip()) for t in opts.torus.split(",") if t.strip()]
@@ -157,6 +159,12 @@ def _cmd_tori(opts: ToneOptions, c: float) -> int:
     print()
     print(to_markdown(table))
     print(verdict)
+    if len(tori) > 1 and all(t.exact for t in tori):
+        # an isometry invariant: isospectral tori need not be isometric (Milnor's pair is not)
+        for t in tori:
+            norm, count, index = shortest_vectors_index(t)
+            print(f"  {t.name}: its {count} shortest dual vectors (|w|^2 = {norm}) generate a sublattice of "
+                  f"index {index if index else 'infinity'}")
     sys.stdout.flush()
     return 0
 

@@ -10,7 +10,8 @@ import pytest
 
 from bench.config import ConfigError, conf_dir
 from bench.lattice import (BUILTIN, Torus, d_plus_basis, gram, inverse, load_torus, parse_basis,
-                           short_vector_counts, torus_spectrum)
+                           short_vector_counts, shortest_vectors_index, sublattice_index, torus_spectrum,
+                           vectors_of_norm)
 
 
 def sigma(k: int, m: int) -> int:
@@ -157,6 +158,7 @@ def test_tones_shows_one_spectrum_for_milnors_pair(lapbench_cmd):
     assert p.returncode == 0, p.stderr
     assert "| 4 | 1.579e+02 | 2.000e+00 | 61920 | 61920 |" in p.stdout
     assert "one spectrum: the 3 distinct eigenvalues up to |w|^2 <= 4" in p.stdout
+    assert "d16plus: its 480 shortest dual vectors (|w|^2 = 2) generate a sublattice of index 2" in p.stdout
     q = subprocess.run(lapbench_cmd + ["tones", "speed=1", "torus=e8,square"], capture_output=True, text=True,
                        timeout=300)
     assert q.returncode == 0 and "different spectra: the multiplicities first differ at |w|^2 = 1" in q.stdout
@@ -165,3 +167,34 @@ def test_tones_shows_one_spectrum_for_milnors_pair(lapbench_cmd):
 def test_absurd_bounds_are_refused_up_front():
     with pytest.raises(ConfigError, match=r"^`max_norm` = 12 would count about .* dual vectors of 'e8e8'"):
         torus_spectrum(load_torus("e8e8"), 12)
+
+
+def test_e8_roots_are_the_known_240():
+    # E_8's norm-2 vectors: the 112 vectors +-e_i +- e_j and the 128 vectors (+-1/2)^8 with an
+    # even number of minus signs (Conway & Sloane, SPLAG, ch. 4 sec. 8.1), built here directly
+    B = np.array(d_plus_basis(8), dtype=float)
+    n = vectors_of_norm(np.array(gram(d_plus_basis(8)), dtype=np.int64), 2)   # E8 is self-dual
+    got = {tuple(v) for v in (n @ B).tolist()}
+    want = set()
+    for i, j in itertools.combinations(range(8), 2):
+        for si, sj in itertools.product((1.0, -1.0), repeat=2):
+            v = [0.0] * 8
+            v[i], v[j] = si, sj
+            want.add(tuple(v))
+    for signs in itertools.product((0.5, -0.5), repeat=8):
+        if sum(s < 0 for s in signs) % 2 == 0:
+            want.add(signs)
+    assert len(want) == 240 and got == want
+
+
+def test_sublattice_index_by_hand():
+    assert sublattice_index([[2, 0], [0, 3]]) == 6                 # det = 6
+    assert sublattice_index([[2, 1], [1, 2], [4, 2]]) == 3         # det [[2,1],[1,2]] = 3; third row dependent
+    assert sublattice_index([[1, 1], [2, 2]]) == 0                 # rank 1: no finite index
+
+
+def test_milnor_pair_is_not_isometric():
+    # the roots (norm 2) generate E_8 + E_8 itself but only D_16 inside D_16^+, of index 2
+    # (D_16^+ = D_16 u (D_16 + h) by construction; Conway & Sloane, SPLAG, ch. 4 sec. 7.1)
+    assert shortest_vectors_index(load_torus("e8e8")) == (2, 480, 1)
+    assert shortest_vectors_index(load_torus("d16plus")) == (2, 480, 2)
