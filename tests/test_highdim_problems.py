@@ -357,3 +357,22 @@ def test_eigen_metric_accepts_any_basis_of_a_ball_eigenspace():
     assert m["eig_rel_max"] == 0 and m["mode_angle_max"] < 1e-6
     bad = Solution(evaluate=sol.evaluate, eigenvalues=p.eigenvalues.copy(), modes=lambda q: p.modes(q)[:, ::-1])
     assert measure(p, bad, p.eval_set(seed=1))["mode_angle_max"] > 1.0   # wrong eigenspaces: far off
+
+
+def test_run_records_the_sampling_error_of_a_four_dimensional_case(tmp_path, lapbench_cmd):
+    import json
+    import subprocess
+
+    p = subprocess.run(lapbench_cmd + ["run", "problem=nd_harmonic", "problem.dim=4", "solver=fst5",
+                                       "timing.repeats=1", "timing.min_time=0", f"results_dir={tmp_path}",
+                                       f"hydra.run.dir={tmp_path}/hydra"], capture_output=True, text=True, timeout=300)
+    assert p.returncode == 0, p.stderr
+    (path,) = (tmp_path / "runs").glob("nd_harmonic__fst5__*.json")
+    rec = json.loads(path.read_text())
+    assert rec["status"] == "ok", rec["reason"]
+    assert rec["problem"]["id"].endswith("[box lo=0^4 hi=1^4]")
+    m = rec["metrics"]
+    assert m["eval_points"] == 8 * 4096 and len(m["rel_l2_replicates"]) == 8 and "Sobol" in m["eval_method"]
+    # the replicates scatter around the pooled estimate by about the stated standard error
+    assert 0 < m["rel_l2_stderr"] < 0.05 * m["rel_l2"]
+    assert abs(np.mean(m["rel_l2_replicates"]) - m["rel_l2"]) < 5 * m["rel_l2_stderr"]
