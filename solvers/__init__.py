@@ -9,6 +9,7 @@ from solvers.pinn import PINNFourier, PINNHard, PINNRar, PINNRitz, PINNSoft
 from solvers.pinn.eigen import PINNEigen
 from solvers.spectral import Chebyshev
 from solvers.sparse_grid import SparseGridCT
+from solvers.walk_on_spheres import WalkOnSpheres
 
 # The one registry: name -> class. Later families add their entries here.
 SOLVERS: dict[str, type[Solver]] = {
@@ -28,6 +29,7 @@ SOLVERS: dict[str, type[Solver]] = {
     "pinn_rar": PINNRar,
     "pinn_eigen": PINNEigen,
     "sparse_grid": SparseGridCT,
+    "wos": WalkOnSpheres,
 }
 
 __all__ = ["SOLVERS", "Solver", "Solution", "Budget", "RunContext", "Tags", "Unsupported",

@@ -33,6 +33,9 @@ TEST_BUDGETS = {
     # lambda_1 within 1e-2 of 2 pi^2 (the sanity bound is 0.5), a few seconds per solve
     "pinn_eigen": {"width": 12, "depth": 2, "train_level": 6, "adam_steps": 50, "lbfgs_steps": 20,
                    "quad_level": 16},
+    # walk-on-spheres on nd_gauss (d = 3 box, 3.5e4 evaluation points): 24 walks, shell 3e-2
+    # (statistical error ~ 0.44 sqrt(16 / 24) = 0.36 against the 0.5 sanity bound; ~3 s per solve)
+    "wos": {"walks": 24, "eps": 3e-2},
 }
 
 # (solver, check) -> reason. Empty: every solver passes every applicable check.
