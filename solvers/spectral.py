@@ -24,7 +24,7 @@ __all__ = ["Chebyshev", "cheb", "barycentric_matrix", "cheb_eigen", "cheb_box_so
 
 # `n` left at its default (32) on a d-box means default_n(d, 32, CHEB_DEFAULT_NODES): the nodal
 # tensor of (n+1)^d values is contracted with every evaluation point (m (n+1)^d flops), so the
-# default keeps it near 2^17 values (32 for d <= 3, 16 for d = 4, 8 for d = 5, 4 for d = 6..8).
+# default keeps (n-1)^d at most 2^17 (32 for d <= 3, 16 for d = 4, 8 for d = 5, 6, 4 for d = 7..10).
 CHEB_DEFAULT_NODES = 1 << 17
 
 
