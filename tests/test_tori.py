@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from bench.config import ConfigError, conf_dir
-from bench.lattice import (BUILTIN, Torus, d_plus_basis, gram, inverse, load_torus, parse_basis,
+from bench.lattice import (BUILTIN, Torus, d_plus_basis, gram, inverse, lll_reduce, load_torus, parse_basis,
                            short_vector_counts, shortest_vectors_index, sublattice_index, torus_spectrum,
                            vectors_of_norm)
 
@@ -198,3 +198,26 @@ def test_milnor_pair_is_not_isometric():
     # (D_16^+ = D_16 u (D_16 + h) by construction; Conway & Sloane, SPLAG, ch. 4 sec. 7.1)
     assert shortest_vectors_index(load_torus("e8e8")) == (2, 480, 1)
     assert shortest_vectors_index(load_torus("d16plus")) == (2, 480, 2)
+
+
+def _skewed(basis, seed=1, moves=40):
+    """The same lattice in a badly skewed basis: rows times a random unimodular matrix."""
+    rng = np.random.default_rng(seed)
+    n = len(basis)
+    U = np.eye(n, dtype=np.int64)
+    for _ in range(moves):
+        i, j = rng.choice(n, 2, replace=False)
+        U[i] += int(rng.integers(-3, 4)) * U[j]
+    return U, (U.astype(object) @ np.array(basis, dtype=object)).tolist()
+
+
+def test_spectrum_does_not_depend_on_the_basis_and_lll_is_exact():
+    U, rows = _skewed(d_plus_basis(8))
+    assert round(abs(np.linalg.det(U.astype(float)))) == 1 and np.abs(U).max() > 50
+    t = Torus("skewed_e8", tuple(tuple(r) for r in rows))
+    assert torus_spectrum(t, 6).multiplicities == (1, 240, 2160, 6720)      # 240 sigma_3(m), as for E8
+    A = np.array(gram(rows), dtype=object)
+    R, V = lll_reduce(A)
+    assert (R == V @ A @ V.T).all()                                         # exact congruence
+    assert round(abs(np.linalg.det(V.astype(float)))) == 1                  # unimodular
+    assert max(abs(int(v)) for v in R.ravel()) <= 2 < max(abs(int(v)) for v in A.ravel())
