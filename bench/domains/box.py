@@ -131,12 +131,11 @@ class Box(SolidDomain):
             return self._rectangle().extend_boundary_data(g, points)
         p = self._points(points)
         lo, hi = np.asarray(self.lo), np.asarray(self.hi)
-        dist = np.concatenate([p - lo, hi - p], axis=1)            # (m, 2d), faces lo_0.. then hi_0..
-        dist = np.clip(dist, 0.0, None)
+        dist = np.clip(np.concatenate([p - lo, hi - p], axis=1), 0.0, None)   # (m, 2d): faces lo_i, then hi_i
         dmin = dist.min(axis=1, keepdims=True)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            w = np.where(dmin > 0, (dmin / np.where(dist > 0, dist, 1.0)) ** 2, (dist == 0).astype(float))
-        w = np.where((dmin > 0) & (dist == 0), 0.0, w)
+        # w_f = (dmin / d_f)^2 (the weights scaled by dmin^2, at most 1); on a face (dmin = 0) only
+        # the faces through the point count, equally
+        w = np.where(dmin > 0, (dmin / np.where(dist > 0, dist, 1.0)) ** 2, (dist == 0).astype(float))
         num = np.zeros(len(p))
         for f in range(2 * self.dim):
             i, value = f % self.dim, (lo if f < self.dim else hi)[f % self.dim]
