@@ -12,7 +12,12 @@ Measures, in one run on this machine (best of repeats):
    stacked matrix products, tanh and Adam; see `step_ratio`);
 3. time to relative L2 error 1e-3 and the best error within the training budget for the
    `pinn_hard` preset on sin(pi x) sin(pi y), next to the classical solvers' time to the same
-   error, all through `bench.run.run_case` (forked, pinned, timed as in any sweep).
+   error, all through `bench.run.run_case` (forked, pinned, timed as in any sweep);
+4. the step cost against the dimension d (DIMS): one Adam step of the strong-form residual loss
+   with the forward Laplacian (d + 2 streams), nested autograd (d backward passes), the
+   coordinate-sampled forward Laplacian with k = SAMPLED_K coordinates (k + 2 streams, Hu et al.
+   2024) and a plain forward + backward step, 1 thread, float32 (``--dims-only`` runs this part
+   alone and updates its entry in the JSON file).
 Writes results/perf/pinn_step.json.
 """
 from __future__ import annotations
@@ -27,6 +32,8 @@ import numpy as np
 
 POINTS = 2500
 WIDTH, DEPTH = 50, 4
+DIMS = (2, 3, 4, 6, 8, 10, 16, 20)
+SAMPLED_K = 2
 
 
 def _best_ms(fn, repeats: int, inner: int) -> float:
@@ -205,12 +212,62 @@ def time_to_tolerance(budget: float, tol: float = 1e-3) -> dict:
     return out
 
 
+def step_against_dimension(repeats: int) -> list[dict]:
+    """ms per Adam step of the residual loss in d dimensions (part 4 of the module docstring)."""
+    import torch
+
+    from solvers.pinn.losses import Batch, Loss
+    from solvers.pinn.model import Network
+    from solvers.pinn.sampling import PointData
+
+    torch.set_num_threads(1)
+    rows = []
+    for d in DIMS:
+        gen = torch.Generator().manual_seed(0)
+        net = Network([v for _ in range(d) for v in (0.0, 1.0)], WIDTH, DEPTH, "tanh", 0, 1.0,
+                      torch.float32, gen)
+        rng = np.random.default_rng(0)
+        batch = Batch(PointData(x=rng.uniform(0, 1, (POINTS, d)), f=np.ones(POINTS)), torch.float32)
+        opt = torch.optim.Adam(net.parameters(), lr=1e-6)
+        variants = {"forward": Loss(laplacian="forward"), "autograd": Loss(laplacian="autograd"),
+                    f"forward_k{SAMPLED_K}": Loss(laplacian="forward", laplacian_dims=SAMPLED_K)}
+
+        def stepper(loss):
+            counter = iter(range(10 ** 9))
+
+            def step():
+                opt.zero_grad(set_to_none=True)
+                loss(net, batch, None, step=next(counter))[0].backward()
+                opt.step()
+            return step
+
+        def plain():
+            opt.zero_grad(set_to_none=True)
+            torch.mean(net(batch.x) ** 2).backward()
+            opt.step()
+
+        row = {"d": d, "plain_step_ms": _best_ms(plain, repeats, 5)}
+        for name, loss in variants.items():
+            if name == f"forward_k{SAMPLED_K}" and SAMPLED_K >= d:
+                row[f"{name}_step_ms"] = None
+                continue
+            row[f"{name}_step_ms"] = _best_ms(stepper(loss), repeats, 3)
+        rows.append(row)
+        print("  d = {:2d}: plain {:6.2f} ms, forward {:7.2f} ms, autograd {:7.2f} ms, sampled k = {} {} ms"
+              .format(d, row["plain_step_ms"], row["forward_step_ms"], row["autograd_step_ms"], SAMPLED_K,
+                      "-" if row[f"forward_k{SAMPLED_K}_step_ms"] is None
+                      else f"{row[f'forward_k{SAMPLED_K}_step_ms']:7.2f}"), flush=True)
+    return rows
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="fewer repeats and a 30 s training budget")
     ap.add_argument("--budget", type=float, default=None,
                     help="training budget of the time-to-tolerance run in seconds (default 150; "
                          "the issue's full measurement is 300)")
+    ap.add_argument("--dims-only", action="store_true",
+                    help="only part 4 (step cost against d); updates that entry of the JSON file")
     args = ap.parse_args(argv)
     repeats = 3 if args.quick else 7
     budget = args.budget or (30.0 if args.quick else 150.0)
@@ -221,6 +278,17 @@ def main(argv=None):
     from solvers.pinn import PINN
 
     PINN.preload()
+    path = Path("results/perf/pinn_step.json")
+    if args.dims_only:
+        out = json.loads(path.read_text()) if path.is_file() else {}
+        print("4. step cost against the dimension (1 thread, float32)", flush=True)
+        out["dimension"] = {"loadavg_1min_start": os.getloadavg()[0], "points": POINTS,
+                            "network": f"{DEPTH} x {WIDTH} tanh", "rows": step_against_dimension(repeats),
+                            "loadavg_1min_end": os.getloadavg()[0]}
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(json.dumps(out, indent=1))
+        print(f"wrote {path}")
+        return
     out = {"machine": {"cpus": os.cpu_count(), "torch": torch.__version__,
                        "loadavg_1min_start": os.getloadavg()[0]},
            "network": f"{DEPTH} x {WIDTH} tanh, {POINTS} points"}
@@ -230,8 +298,10 @@ def main(argv=None):
     out["step_ratio"] = step_ratio(repeats)
     print(f"3. time to 1e-3 on sin(pi x) sin(pi y), training budget {budget:g} s", flush=True)
     out["time_to_tolerance"] = time_to_tolerance(budget)
+    print("4. step cost against the dimension (1 thread, float32)", flush=True)
+    out["dimension"] = {"points": POINTS, "network": f"{DEPTH} x {WIDTH} tanh",
+                        "rows": step_against_dimension(repeats)}
     out["machine"]["loadavg_1min_end"] = os.getloadavg()[0]
-    path = Path("results/perf/pinn_step.json")
     path.parent.mkdir(parents=True, exist_ok=True)
     path.write_text(json.dumps(out, indent=1))
     print(f"wrote {path}")
