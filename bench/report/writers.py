@@ -70,7 +70,7 @@ th,td{padding:.25rem .6rem;text-align:left;vertical-align:top}thead th{border-to
 border-bottom:1px solid #222}tbody tr:last-child td{border-bottom:2px solid #222}caption{caption-side:bottom;
 text-align:left;font-size:.85rem;color:#555;padding-top:.3rem}figure{margin:1rem 0 2rem}img{max-width:100%}
 figcaption{font-size:.85rem;color:#555}code{background:#f3f3f3;padding:0 .2rem}
-img{height:auto}.tbl{overflow-x:auto;max-width:100%}p,li,figcaption,caption,h1,h2,h3{overflow-wrap:anywhere}
+img{height:auto}figure img{width:min(100%,60rem)}.tbl{overflow-x:auto;max-width:100%}p,li,figcaption,caption,h1,h2,h3{overflow-wrap:anywhere}
 nav ul{padding-left:1.2rem;margin:.2rem 0}nav>ul{columns:2 24rem}nav>ul>li{break-inside:avoid}nav li{font-size:.9rem}
 @media print{body{max-width:none;margin:0}.tbl{overflow:visible}figure,table{break-inside:avoid}
 nav>ul{columns:1}}"""
