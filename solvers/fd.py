@@ -24,9 +24,10 @@ __all__ = ["FD5", "FD9", "MAX_GRID_N", "grid_eigen", "box_matrix", "FD_BOX_DIMS"
 # Dimensions of the boxes fd5 takes: beyond 4 a sparse matrix of (n-1)^d rows is never the
 # method of choice (the sine transforms solve the same system, `fst5`).
 FD_BOX_DIMS = frozenset({1, 2, 3, 4})
-# `n` left at its default (64) on a d-box: default_n(d, 64, FD_BOX_UNKNOWNS) (64 for d = 1, 2,
-# 32 for d = 3, 16 for d = 4)
-FD_BOX_UNKNOWNS = 1 << 16
+# `n` left at its default (64) on a d-box: default_n(d, 64, FD_BOX_UNKNOWNS[linear_solver]):
+# direct 64, 64, 32, 8 for d = 1..4 (SuperLU's fill in 4-D: 2 s at n = 12, 83 s at n = 16,
+# measured on this machine), amg 64, 64, 64, 16 (1.2 s at n = 16 in 4-D)
+FD_BOX_UNKNOWNS = {"direct": 1 << 15, "amg": 1 << 18}
 
 # A grid finer than this needs > ~0.5 TB for a sparse factorisation; refused up front.
 MAX_GRID_N = 1 << 15
@@ -161,7 +162,7 @@ class FD5(_SparseFD):
     def box_n(self, dim: int) -> int:
         """Intervals per side on a d-box: `n` as given, or the dimension's default for the default 64."""
         n = self.params.n
-        return default_n(dim, n, FD_BOX_UNKNOWNS) if n == FDParams.n else n
+        return default_n(dim, n, FD_BOX_UNKNOWNS[self.params.linear_solver]) if n == FDParams.n else n
 
     def memory_estimate_mb(self, problem=None) -> float:
         if problem is None or problem.domain.kind != "box":
