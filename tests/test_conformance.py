@@ -21,6 +21,7 @@ TEST_BUDGETS = {
     "fem_p2": {"level": 2},           # P2 on 4^2 times the coarse mesh: ~1e-3 on smooth data
     "disk_cheb": {"n": 10, "m": 20},  # ~1e-4 on disk_harmonic (rho = 2) in milliseconds
     "pixel5": {"refine": 1},          # pixel corners of a 34 x 34 mask: exact at the nodes for the harmonic cubic
+    "sparse_grid": {"level": 5},      # 2-D combination of 9 grids, finest h = 1/32: order-2 accuracy
     # PINNs: 2 x 12 tanh net, 128 points, 100 Adam + 30 L-BFGS steps: about a second per solve,
     # rel. L2 on sine well below the 0.5 sanity bound (measured: 1e-2 soft, 1e-3 hard)
     **{name: {"width": 12, "depth": 2, "n_interior": 128, "n_boundary": 64, "adam_steps": 100,
