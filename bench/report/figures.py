@@ -20,6 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from bench.report.frame import _finite, _slug, metric_key, natural_key
+from bench.report.dimensions import fig_dimensions
 from bench.report.images import fig_images
 from bench.report.options import FAIL_STATUSES, _is_learned
 from bench.report.rules import best_errors, order_fits, pareto_front, run_points
@@ -377,6 +378,8 @@ def make_figures(recs, frame, cfg, folder: Path) -> list[Figure]:
         jobs.append(lambda: fig_overview(recs, frame, pts, cfg, folder))
     if "field" in kinds:
         jobs.append(lambda: fig_field(recs, frame, cfg, folder))
+    if "dimensions" in kinds:   # time-to-tolerance against d (bench/report/dimensions.py)
+        jobs.append(lambda: fig_dimensions(recs, frame, cfg, folder, Figure, _save))
     out = []
     with plt.rc_context(_style(cfg)):
         for job in tqdm(jobs, desc="figures", unit="fig", file=sys.stderr, disable=not sys.stderr.isatty()):

@@ -11,7 +11,7 @@ __all__ = ["ReportConfig", "FigureOptions", "FitOptions", "FieldOptions", "FORMA
 
 FORMATS = ("md", "csv", "tex", "html")
 METRICS = ("rel_l2", "abs_l2", "max_abs", "rel_max", "nodal_max")
-FIGURE_KINDS = ("pareto", "order", "training", "field", "overview", "images")
+FIGURE_KINDS = ("pareto", "order", "training", "field", "overview", "images", "dimensions")
 IMAGE_FORMATS = ("png", "svg")
 LEARNED_FAMILIES = ("pinn",)       # everything else is a classical method
 FAIL_STATUSES = ("failed", "timeout", "diverged", "crashed", "out_of_memory", "unsupported")
