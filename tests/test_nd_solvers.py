@@ -158,6 +158,17 @@ def test_solver_orders_on_nd_problems(name, solver, ns, order):
     assert np.all(np.abs(_orders(errs) - order) < 0.3), errs
 
 
+@pytest.mark.parametrize("solver, order", [("fst5", 2.0), ("fst9", 4.0)])
+def test_fst_orders_in_five_dimensions(solver, order):
+    """The orders hold in d = 5 (nd_harmonic, frequency 1; n = 4, 8, 12, up to 11^5 unknowns)."""
+    problem = make_problem({"name": "nd_harmonic", "dim": 5, "frequency": 1.0})
+    pts = problem.domain.sample_interior(3000, np.random.default_rng(0))
+    ns = np.array([4, 8, 12])
+    errs = np.array([_rel_l2(SOLVERS[solver](n=int(n)).solve(problem.public()), problem, pts) for n in ns])
+    observed = np.log(errs[:-1] / errs[1:]) / np.log(ns[1:] / ns[:-1])
+    assert np.all(np.abs(observed - order) < 0.4), errs
+
+
 def test_cheb_spectral_on_nd_harmonic():
     """cheb on nd_harmonic, d = 3: geometric convergence to below 1e-10 at degree 10."""
     problem = make_problem({"name": "nd_harmonic", "dim": 3})
@@ -186,6 +197,15 @@ def test_combination_exact_for_multilinear_harmonic():
     u = Field(lambda x, y, z: x * y * z + x - 2 * y)
     p = _points(3)
     np.testing.assert_allclose(combine(combination_solve(UNIT3, 4, None, u))(p), u(p), atol=1e-12)
+
+
+def test_combination_exact_for_multilinear_harmonic_in_six_dimensions():
+    """x0 x1 ... x5 - 3 x2 x4 is harmonic and multilinear (closed form): the combination of
+    level 3 in d = 6 (56 grids) reproduces it to rounding."""
+    u = Field(lambda *x: x[0] * x[1] * x[2] * x[3] * x[4] * x[5] - 3 * x[2] * x[4])
+    p = _points(6, 1000)
+    np.testing.assert_allclose(combine(combination_solve(np.array([[0.0, 1.0]] * 6), 3, None, u))(p), u(p),
+                               atol=1e-12)
 
 
 def test_sparse_grid_order_in_level():
