@@ -171,9 +171,11 @@ def test_report_in_chromium(browser, report, offline, tmp_path):
     # no horizontal scrolling at 1280 px: the page is no wider than the window
     assert browser.js("document.documentElement.scrollWidth <= window.innerWidth"), \
         browser.js("[document.documentElement.scrollWidth, window.innerWidth]")
-    # every table and figure: one <table> per CSV the report wrote, one <figure> per figure
+    # every table and figure: one <table> per CSV the report wrote, one image per figure file (as
+    # many as the Markdown report links)
+    md = (report / "report.md").read_text()
     assert browser.js("document.querySelectorAll('table').length") == len(list((report / "csv").glob("*.csv")))
-    assert browser.js("document.querySelectorAll('figure img').length") == n_figs
+    assert browser.js("document.querySelectorAll('figure img').length") == n_figs == md.count("](figures/")
     # the contents: each link lands on an element of the page with a visible heading or figure
     missing = browser.js("[...document.querySelectorAll('nav a')].map(a => a.getAttribute('href'))"
                          ".filter(h => !document.getElementById(h.slice(1)))")
