@@ -29,7 +29,8 @@ from solvers.base import Solution, Solver, Tags
 from solvers.fast_poisson import box_solve
 from solvers.grid import DEFAULT_UNKNOWNS, MAX_GRID_DIM, TensorLagrange, refuse_memory
 
-__all__ = ["SparseGridCT", "combination_levels", "combination_solve", "MAX_LEVEL"]
+__all__ = ["SparseGridCT", "combination_levels", "combination_solve", "combine", "grid_count", "default_level",
+           "MAX_LEVEL", "MAX_GRIDS"]
 
 MAX_LEVEL = 30
 _DEFAULT_LEVEL = 10
@@ -51,6 +52,17 @@ def combination_levels(level: int, dim: int) -> list[tuple[tuple[int, ...], int]
             parts = np.diff((0,) + cuts + (total,))
             out.append((tuple(int(p) for p in parts), c))
     return out
+
+
+# Component grids allowed in one combination (each is a solve and an interpolant); the count
+# binom(level + dim - 2 - q, dim - 1) summed over q explodes with the dimension (level 10 in d = 32:
+# 8.5e8), so it is checked by its closed form before any grid is listed.
+MAX_GRIDS = 20000
+
+
+def grid_count(level: int, dim: int) -> int:
+    """Number of component grids of the level-`level` combination in `dim` dimensions."""
+    return sum(comb(level + dim - 2 - q, dim - 1) for q in range(min(dim, level)))
 
 
 def _unknowns(level: int, dim: int) -> tuple[int, int]:
@@ -76,6 +88,9 @@ def default_level(dim: int, cap: int = _DEFAULT_LEVEL) -> int:
     number times 2^d exceeds DEFAULT_CORNERS."""
     level = cap
     while level > 1:
+        if grid_count(level, dim) > MAX_GRIDS:
+            level -= 1
+            continue
         inner, stored = _unknowns(level, dim)
         grids = len(combination_levels(level, dim))
         if inner <= DEFAULT_UNKNOWNS and stored <= DEFAULT_STORED and grids * 2 ** dim <= DEFAULT_CORNERS:
@@ -136,6 +151,8 @@ class SparseGridCT(Solver):
 
     def memory_estimate_mb(self, problem=None) -> float:
         dim = getattr(getattr(problem, "domain", None), "dim", 2)
+        if grid_count(self.box_level(dim), dim) > MAX_GRIDS:
+            return float("inf")
         inner, stored = _unknowns(self.box_level(dim), dim)
         # the stored component grids plus the largest solve's work arrays (at most 5 of its size)
         largest = max(int(np.prod(2.0 ** np.asarray(l) + 1)) for l, _ in combination_levels(self.box_level(dim), dim))
@@ -144,6 +161,9 @@ class SparseGridCT(Solver):
     def _solve(self, problem, budget, ctx):
         dim = problem.domain.dim
         level = self.box_level(dim)
+        if grid_count(level, dim) > MAX_GRIDS:
+            raise ValueError(f"sparse_grid level {level} in {dim} dimensions has {grid_count(level, dim)} "
+                             f"component grids, above {MAX_GRIDS}; lower `solver.level`")
         refuse_memory(self.name, self.memory_estimate_mb(problem), budget)
         parts = combination_solve(problem.domain.bounds, level, problem.f, problem.g, ctx)
         inner, stored = _unknowns(level, dim)

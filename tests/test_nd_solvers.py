@@ -23,7 +23,7 @@ from solvers.fd import box_matrix
 from solvers.grid import (TensorLagrange, apply_stencil, box_axes, box_fold_boundary, box_operator, box_rhs,
                           default_n)
 from solvers.linalg import solve_spd
-from solvers.sparse_grid import combination_levels, combination_solve, combine
+from solvers.sparse_grid import combination_levels, combination_solve, combine, grid_count
 from solvers.spectral import TensorBarycentric, cheb_axes, cheb_box_solve
 
 UNIT3 = np.array([[0.0, 1.0]] * 3)
@@ -183,6 +183,7 @@ def test_combination_levels(level, dim):
     """Grids with |l|_1 = level + dim - 1 - q number binom(level + dim - 2 - q, dim - 1)
     (compositions into dim parts >= 1); the coefficients (-1)^q binom(dim - 1, q) sum to 1."""
     grids = combination_levels(level, dim)
+    assert len(grids) == grid_count(level, dim)
     assert abs(sum(c for _, c in grids) - 1) == 0
     for q in range(min(dim, level)):
         lv = [l for l, c in grids if sum(l) == level + dim - 1 - q]
@@ -233,6 +234,9 @@ def test_dimensions_and_memory_are_refused():
     eig = make_problem({"name": "eigen_box", "dim": 3}).public()
     for name in ("fd5", "fst5", "cheb", "sparse_grid"):
         assert not SOLVERS[name]().supports(eig)[0]
+    p32 = make_problem({"name": "nd_harmonic", "dim": 32}).public()
+    with pytest.raises(ValueError, match="component grids"):    # binom(60, 31) grids at level 30
+        SOLVERS["sparse_grid"](level=30).solve(p32)
     with pytest.raises(MemoryError, match="memory_limit_mb"):
         SOLVERS["fst5"](n=512).solve(make_problem({"name": "nd_harmonic", "dim": 3}).public(),
                                     budget=Budget(memory_limit_mb=100))
