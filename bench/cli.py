@@ -287,6 +287,8 @@ def cmd_report(argv: list[str]) -> int:
     from bench.report import to_markdown
 
     print(to_markdown(table) if len(table) else "(no records found)")
+    if (out / "summary.md").is_file():   # the answers last, where the terminal shows them
+        print("\n" + (out / "summary.md").read_text())
     print(f"lapbench: report of {len(table)} cases written to {out}/", file=sys.stderr)
     return 0
 

@@ -386,7 +386,7 @@ def plan_run(session: Session, args: Args) -> Plan:
     from hydra.core.override_parser.overrides_parser import OverridesParser
     from omegaconf import OmegaConf
 
-    from bench.suites import expand_suite
+    from bench.suites import expand_suite, split_tolerance
 
     base = args.searchpath_overrides() + args.overrides
     if args.multirun:
@@ -412,14 +412,33 @@ def plan_run(session: Session, args: Args) -> Plan:
                 raise ConfigError(f"`suite` {suite.get('name')!r} has no cases")
             rest = strip_overrides(combo, ("suite", "case_index"))
             for case_ov in cases:
+                case_ov, tol = split_tolerance(case_ov)
                 prep, opts = _validate(session.compose(case_ov + rest), rest, suite=(suite.get("name"), case_ov))
                 prep.case.suite = suite.get("name")  # composed without `suite=`; its record keeps the name
+                if tol is not None:
+                    prep.tolerance = _tolerance_spec(prep, tol, suite.get("name"), plan.launcher)
                 plan.cases.append((prep, opts))
             plan.combos, plan.suite = [combo], suite.get("name")
             return plan
         plan.cases.append(_validate(cfg, combo))
         plan.combos.append(combo)
     return plan
+
+
+def _tolerance_spec(prep, tol: dict, suite: str, launcher: str) -> dict:
+    """Check a solve-to-tolerance case before anything runs: sequential launcher, a solver with a
+    declared knob (the one written `auto`, if any), a metric of the problem's kind."""
+    from bench.tolerance import knob_for, metric_for
+
+    if launcher not in ("basic", None, ""):
+        raise ConfigError(f"suite {suite!r} solves to tolerances (`tolerances:`), which runs probe after probe "
+                          f"from this process; use the basic launcher, not `hydra/launcher={launcher}`")
+    knob = knob_for(prep.case.solver)
+    for key in tol["auto"]:
+        if key != knob.key:
+            raise ConfigError(f"`solver.{key}: auto` in suite {suite!r}: the resolution knob of solver "
+                              f"{prep.solver.name} is `{knob.key}`")
+    return {"tolerance": tol["tolerance"], "metric": metric_for(prep.problem.kind, tol["metric"])}
 
 
 _FIELD_RE = re.compile(r"^`(problem|solver)\.([^`.\[]+)")

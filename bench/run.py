@@ -102,6 +102,7 @@ class Prepared:
     path: Path
     unsupported: str | None = None
     timing: TimingConfig = dataclasses.field(default_factory=TimingConfig)
+    tolerance: dict | None = None   # solve-to-tolerance cases of a suite: {"tolerance", "metric"} (bench.tolerance)
 
 
 def make_solver(cfg: dict):

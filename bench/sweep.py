@@ -67,10 +67,42 @@ class Progress:
             self.stream.write(text + "\n")
             self.stream.flush()
 
+    def write(self, text: str) -> None:
+        """A line that is not a finished case (the bar does not advance)."""
+        if self.bar is not None:
+            self.bar.write(text, file=self.stream)
+        else:
+            self.stream.write(text + "\n")
+            self.stream.flush()
+
     def close(self) -> None:
         if self.bar is not None:
             self.bar.close()
             self.bar = None
+
+
+def _to_tolerance(prep, opts, progress: Progress, n: int, total: int) -> list[dict]:
+    """A suite's solve-to-tolerance case (bench.tolerance): one line per probe, then the outcome."""
+    from bench.tolerance import solve_to_tolerance
+
+    spec = prep.tolerance
+    records: list[dict] = []
+    where = f"[{n}{'/' + str(total) if total > 1 else ''}]"
+
+    def on_probe(probe, rec):
+        if rec is not None:
+            records.append(rec)
+            progress.write(f"  {case_line(rec, n, total if total > 1 else None, probe.skipped)}")
+
+    r = solve_to_tolerance(prep.case, spec["tolerance"], spec["metric"], results_dir=prep.path.parent.parent,
+                           force=bool(getattr(opts, "force", False)), on_probe=on_probe)
+    head = f"{where} {prep.case.problem_label} {r.solver} to {r.metric} <= {r.tolerance:.3g}: "
+    if r.reached:
+        progress.line(head + f"reached at {r.resolution()}, {r.metric}={r.error:.3e} time={_fmt_time(r.time_s)} "
+                             f"({len(r.probes)} probes)")
+    else:
+        progress.line(head + f"{r.status} - {' '.join(r.reason.split())} ({len(r.probes)} probes)")
+    return records
 
 
 def run_sequential(cases, progress: Progress | None = None, start: int = 0) -> list[dict]:
@@ -91,6 +123,9 @@ def run_sequential(cases, progress: Progress | None = None, start: int = 0) -> l
         os.environ["LAPBENCH_CASE_PROGRESS"] = "0"
     try:
         for i, (prep, opts) in enumerate(cases[start:], start=start):
+            if prep.tolerance is not None:
+                records.extend(_to_tolerance(prep, opts, progress, i + 1, total))
+                continue
             rec, skipped = execute(prep, force=bool(getattr(opts, "force", False)))
             records.append(rec)
             progress.line(case_line(rec, i + 1, total if total > 1 else None, skipped))

@@ -135,3 +135,64 @@ def test_eigen_problem_to_tolerance(tmp_path):
     assert r.status == "reached" and r.metric == "eig_rel_max" and r.error <= 1e-8
     below = [q for q in r.probes if q.value == r.value - 1]
     assert below and not (below[0].ok and below[0].error <= 1e-8)
+
+
+# -- tolerance suites (`tolerances:` and `solver.<knob>: auto` in conf/suite/*.yaml) ---------------
+def test_suite_tolerances_expand_to_one_search_per_tolerance():
+    from bench.suites import expand_suite, split_tolerance
+
+    cases = expand_suite({"name": "t", "cases": [{"problem": "sine", "solver": ["fd5", "cheb"], "solver.n": "auto",
+                                                  "tolerances": [1e-3, 1e-6]}]})
+    assert len(cases) == 4
+    rest, spec = split_tolerance(cases[0])
+    assert rest == ["problem=sine", "solver=fd5"] and spec == {"tolerance": 1e-3, "metric": None, "auto": ["n"]}
+    assert split_tolerance(["problem=sine"]) == (["problem=sine"], None)
+
+
+@pytest.mark.parametrize("grid, message", [
+    ({"problem": "sine", "solver": "fd5", "solver.n": "auto"}, "`suite.cases[0].solver.n: auto` needs `tolerances"),
+    ({"problem": "sine", "solver": "fd5", "tolerances": [1e-3, -1]}, "`suite.cases[0].tolerances[1]` must be a positive"),
+    ({"problem": "sine", "solver": "fd5", "tolerances": []}, "must list at least one error"),
+])
+def test_suite_tolerances_bad_input(grid, message):
+    from bench.suites import expand_suite
+
+    with pytest.raises(ConfigError, match=message.replace("[", r"\[").replace("]", r"\]")):
+        expand_suite({"name": "t", "cases": [grid]})
+
+
+def _suite_dir(tmp_path, body: str):
+    d = tmp_path / "conf" / "suite"
+    d.mkdir(parents=True)
+    (d / "tol.yaml").write_text("name: tol\ncases:\n" + body)
+    return tmp_path / "conf"
+
+
+def _lapbench(args, cwd):
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1]
+    return subprocess.run([sys.executable, "-c", "from bench.cli import main; main()"] + args, capture_output=True,
+                          text=True, cwd=cwd, env={**os.environ, "PYTHONPATH": str(root)}, timeout=300)
+
+
+def test_cli_tolerance_suite_runs_searches_and_records_probes(tmp_path):
+    conf = _suite_dir(tmp_path, "  - {problem: sine, solver: [fst5, fem_p2], tolerances: [1.0e-3]}\n")
+    p = _lapbench(["run", "--config-dir", str(conf), "suite=tol", f"results_dir={tmp_path}/res",
+                   "timing.repeats=1", "timing.min_time=0"], tmp_path)
+    assert p.returncode == 0, p.stderr
+    # fst5 on sin(pi x) sin(pi y): 32 reaches 1e-3 and 31 does not (both measured by the probes)
+    assert "[1/2] sine fst5 to rel_l2 <= 0.001: reached at n=32" in p.stdout, p.stdout
+    assert "[2/2] sine fem_p2 to rel_l2 <= 0.001: reached at level=" in p.stdout
+    assert len(list((tmp_path / "res" / "runs").glob("*.json"))) >= 7
+
+
+def test_cli_tolerance_suite_wrong_knob_is_one_line(tmp_path):
+    conf = _suite_dir(tmp_path, "  - {problem: sine, solver: fem_p1, solver.n: auto, tolerances: [1.0e-3]}\n")
+    p = _lapbench(["run", "--config-dir", str(conf), "suite=tol", f"results_dir={tmp_path}/res"], tmp_path)
+    assert p.returncode == 2 and len(p.stderr.strip().splitlines()) == 1, p.stderr
+    assert "the resolution knob of solver fem_p1 is `level`" in p.stderr
+    assert not (tmp_path / "res").exists()

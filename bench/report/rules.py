@@ -31,6 +31,11 @@ Rules (also printed at the top of every report)
   by the upper median (the middle value, the worse of the two middle values for an even count);
   failed seeds count as infinite, so they are never dropped. A method's entry is its best
   configuration, shown with that configuration and how many of its seeds got there.
+* Expected against observed order: each classical method's order for smooth solutions (`EXPECTED_ORDER`,
+  with its source) beside the fitted one; a corner singularity or a sharp feature lowers the observed
+  order until the mesh resolves it, so a lower observed order is flagged, not hidden.
+* Reference accuracy: an error below the accuracy of a computed reference (`reference_floor`) is not a
+  measurement of the method; it is shown as ``< floor (reference accuracy)``, never as a number.
 * Picking the first checkpoint below the tolerance uses hindsight (the harness knows the error,
   a user training a network does not), so it favours checkpointed methods; the report says so.
 """
@@ -44,7 +49,103 @@ from bench.report.frame import _finite, metric_key, natural_key
 from bench.report.options import FAIL_STATUSES, ReportConfig, _is_learned
 
 __all__ = ["run_points", "pareto_front", "time_to_tolerance", "accuracy_at_budget", "speedup_table", "order_fits",
-           "seed_summary", "status_counts", "upper_median", "best_errors"]
+           "seed_summary", "status_counts", "upper_median", "best_errors", "EXPECTED_ORDER", "expected_order",
+           "order_check", "reference_floor", "problem_floors", "floored"]
+
+# Orders of convergence for smooth solutions, (error of the solution in L2-type norms, eigenvalue
+# error); None: spectral (exponential for analytic data, no algebraic order).
+# fd5/fst5/pixel5: LeVeque, Finite Difference Methods for ODEs and PDEs, SIAM 2007, ch. 3 (order 2,
+# eigenvalues too). fd9/fst9: compact 9-point scheme with corrected source, order 4 (Collatz 1960;
+# LeVeque 2007, sec. 3.5), eigenvalues order 4 (solvers/fd.py). fem_p1/fem_p2: L2 error h^(p+1),
+# eigenvalues h^(2p) (Strang & Fix, An Analysis of the Finite Element Method, 1973, ch. 3 and 6).
+# cheb/disk_cheb: Trefethen, Spectral Methods in MATLAB, SIAM 2000 (spectral accuracy).
+EXPECTED_ORDER = {
+    "fd5": (2, 2), "fst5": (2, 2), "pixel5": (2, 2), "fd9": (4, 4), "fst9": (4, 4),
+    "fem_p1": (2, 2), "fem_p2": (3, 4), "cheb": (None, None), "disk_cheb": (None, None),
+}
+ORDER_SLACK = 0.5     # observed within this of the expected order counts as "as expected" [common practice]
+
+
+def expected_order(solver: str, kind: str):
+    """The expected order of `solver` for a smooth problem of `kind` (None: spectral or unknown)."""
+    pair = EXPECTED_ORDER.get(solver)
+    if pair is None:
+        return None
+    return pair[1] if kind == "eigen" else pair[0]
+
+
+def order_check(fits, frame):
+    """`order_fits` with ``expected`` and ``verdict`` columns: ``as expected``, ``lower`` or ``higher``
+    (beyond ORDER_SLACK), ``spectral`` (no algebraic order) or ``no fit``."""
+    fits = fits.copy()
+    kinds = dict(zip(frame["problem_id"], frame["kind"])) if "kind" in frame else {}
+    exp, verdict = [], []
+    for pid, solver, obs in zip(fits["problem_id"], fits["solver"], fits["order"]):
+        e = expected_order(solver, kinds.get(pid, ""))
+        exp.append(float("nan") if e is None else float(e))
+        if solver in EXPECTED_ORDER and e is None:
+            verdict.append("spectral")
+        elif e is None or not _finite(obs):
+            verdict.append("no fit" if e is not None else "unknown")
+        elif obs < e - ORDER_SLACK:
+            verdict.append("lower")
+        elif obs > e + ORDER_SLACK:
+            verdict.append("higher")
+        else:
+            verdict.append("as expected")
+    fits["expected"] = exp
+    fits["verdict"] = verdict
+    return fits
+
+
+def reference_floor(rec: dict, metric: str) -> float | None:
+    """The accuracy of a record's reference in `metric`, when the reference is computed (None: exact).
+
+    Eigen problems: the largest estimated relative error of the reference eigenvalues
+    (``problem.reference.rel_estimate``) for the ``eig_rel_*`` metrics. Other problems: the
+    estimated max error ``reference_error`` of a computed reference; for relative metrics divided
+    by max |u| (``max_abs / rel_max`` of the record), an estimate of the same order.
+    """
+    prob = rec.get("problem") or {}
+    if prob.get("kind") == "eigen":
+        if not metric.startswith("eig_rel"):
+            return None
+        ref = prob.get("reference") or {}
+        if ref.get("kind") != "computed":
+            return None
+        est = [float(v) for v in (ref.get("rel_estimate") or []) if _finite(v)]
+        k = int(prob.get("n_eigs") or len(est) or 1)
+        est = est[:k] if metric == "eig_rel_max" else est[:1]
+        return max(est) if est and max(est) > 0 else None
+    err = (prob.get("params") or {}).get("reference_error")
+    if not _finite(err) or err <= 0:
+        return None
+    if metric in ("rel_l2", "rel_max"):
+        m = rec.get("metrics") or {}
+        scale = m.get("max_abs") / m.get("rel_max") if _finite(m.get("max_abs")) and _finite(m.get("rel_max")) \
+            and m.get("rel_max") > 0 else None
+        return float(err) / scale if scale else None
+    return float(err)
+
+
+def problem_floors(recs, frame, metric: str = "rel_l2", eigen_metric: str | None = None) -> dict:
+    """{problem_id: the largest reference floor of its records} (problems with exact references absent)."""
+    out: dict = {}
+    for i, r in enumerate(recs):
+        f = reference_floor(r, metric_key(r, metric, eigen_metric))
+        if f is not None:
+            pid = frame.at[i, "problem_id"]
+            out[pid] = max(out.get(pid, 0.0), f)
+    return out
+
+
+def floored(error: float, floor: float | None, spec: str = ".2e") -> str:
+    """An error as text; below the reference's accuracy ``< floor (reference accuracy)``."""
+    if not _finite(error):
+        return ""
+    if floor is not None and error < floor:
+        return f"< {floor:.2g} (reference accuracy)"
+    return format(error, spec)
 
 
 def run_points(recs, frame, metric: str = "rel_l2", eigen_metric: str | None = None):

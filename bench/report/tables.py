@@ -9,6 +9,7 @@ from bench.report.frame import _finite, _metric_name, _slug, natural_key
 from bench.report.options import FAIL_STATUSES, FAMILY_ORDER, NOT_REACHED, ReportConfig
 from bench.report.rules import (accuracy_at_budget, best_errors, order_fits, run_points, seed_summary,
                                 speedup_table, status_counts, time_to_tolerance)
+from bench.report.summary import build_summary
 
 __all__ = ["Table", "results_table", "runs_table", "build_tables"]
 
@@ -51,6 +52,7 @@ class Table:
     data: object        # pandas DataFrame, numeric
     display: object     # pandas DataFrame of strings
     problem: str | None = None
+    summary: object = None   # the report's summary (bench.report.summary.Summary) on the `summary` table
 
 
 def _fmt(v, spec=".3g"):
@@ -123,6 +125,10 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
     ab = accuracy_at_budget(recs, frame, cfg.budgets, cfg.metric, points=pts)
     sp = speedup_table(recs, frame, cfg.tolerances, cfg.metric, points=pts)
     metric = _metric_name(cfg)
+    summ = build_summary(recs, frame, cfg, tt, ab, sp)      # the answers first (bench.report.summary)
+    tables.append(Table("summary", "Summary", "Per problem the fastest method to each tolerance and the most "
+                        f"accurate within each time budget ({summ.metric}; method time).", summ.table, summ.table,
+                        summary=summ))
     for pid in sorted(frame["problem_id"].unique(), key=natural_key):
         slug = _slug(pid)
         t = tt[tt["problem_id"] == pid]

@@ -211,6 +211,9 @@ def write_report(cfg: ReportConfig, out_root: str | Path = "results/reports") ->
         if cfg.runs_table:
             runs.to_csv(out / "results.csv", index=False)
     if "md" in cfg.formats:
+        summ = _summary(tables)
+        if summ is not None:    # `lapbench report` prints it last
+            (out / "summary.md").write_text(f"# {title}: summary\n\n" + summ.to_markdown(to_markdown))
         (out / "report.md").write_text(_markdown(title, cfg, recs, frame, tables, figs, out))
         if cfg.runs_table:
             (out / "results.md").write_text(
@@ -232,8 +235,14 @@ def write_report(cfg: ReportConfig, out_root: str | Path = "results/reports") ->
     return out, runs
 
 
+def _summary(tables):
+    """The report's summary (bench.report.summary), carried by the `summary` table; None without."""
+    return next((t.summary for t in tables if t.key == "summary"), None)
+
+
 def _sections(tables, figs):
     """Group tables and figures for reading: per problem, then the cross-problem ones."""
+    tables = [t for t in tables if t.key != "summary"]   # shown on top, not in a section
     problems = []
     for t in tables:
         if t.problem is not None and t.problem not in problems:
@@ -249,6 +258,8 @@ def _sections(tables, figs):
 
 def _markdown(title, cfg, recs, frame, tables, figs, out: Path) -> str:
     lines = [f"# {title}", "", _filters_text(cfg, recs), "", _environment_text(recs) if recs else "", ""]
+    if _summary(tables) is not None:
+        lines += [_summary(tables).to_markdown(to_markdown)]
     lines += ["## Contents", ""]
     for sec, subs in _toc_entries(tables, figs, recs):   # sections only: subsection anchors repeat
         lines.append(f"- [{sec}](#{_anchor(sec)})")
@@ -289,6 +300,11 @@ def _html(title, cfg, recs, frame, tables, figs, out: Path, csv_files) -> str:
     parts = [f"<p>{html.escape(_filters_text(cfg, recs))}</p>"]
     if recs:
         parts.append(f"<p>{html.escape(_environment_text(recs))}</p>")
+    summary_table = next((t for t in tables if t.key == "summary"), None)
+    if summary_table is not None:
+        parts.append("<h2>Summary</h2><ul>" + "".join(f"<li>{html.escape(x)}</li>"
+                                                      for x in summary_table.summary.sentences.values())
+                     + "</ul>" + html_table(summary_table))
     ids = {}
 
     def uid(text):   # unique ids: a repeated heading gets -1, -2, ... as GitHub numbers them
