@@ -20,7 +20,8 @@ from solvers.fd import MAX_GRID_N, _SparseFD, grid_solution
 from solvers.grid import (MAX_GRID_DIM, TensorGrid, box_axes, box_rhs, box_solution, default_n,
                           discrete_rhs, refuse_memory)
 
-__all__ = ["FST5", "FST9", "dirichlet_eigenvalues", "box_eigenvalues", "box_solve"]
+__all__ = ["FST5", "FST9", "dirichlet_eigenvalues", "box_eigenvalues", "box_solve",
+           "divide_by_eigenvalues"]
 
 @dataclasses.dataclass
 class FastParams:
@@ -83,6 +84,32 @@ def box_eigenvalues(ns, hs, compact: bool) -> np.ndarray:
     return lam
 
 
+def divide_by_eigenvalues(what: np.ndarray, ns, hs, compact: bool) -> np.ndarray:
+    """what /= box_eigenvalues(ns, hs, compact), in place and slice by slice along the first axis:
+    the eigenvalues of the other axes are formed once (1/(n_0 - 1) of the grid), so no grid-sized
+    eigenvalue array is ever allocated. With lam = prod_j p_j sum_i a_i / p_i, slice i of the
+    compact operator is a_0[i] P + p_0[i] Q, P = prod_{j>0} p_j, Q = P sum_{j>0} a_j / p_j."""
+    d = len(ns)
+    a = [dirichlet_eigenvalues(int(n) - 1, h) for n, h in zip(ns, hs)]
+    if d == 1:
+        what /= box_eigenvalues(ns, hs, compact)
+        return what
+    rest_ns, rest_hs = list(ns[1:]), list(hs[1:])
+    if not compact:
+        rest = box_eigenvalues(rest_ns, rest_hs, False)
+        for i, ai in enumerate(a[0]):
+            np.divide(what[i], rest + ai, out=what[i])
+        return what
+    p = [1.0 - h ** 2 * v / 12.0 for v, h in zip(a, hs)]
+    P = np.ones([len(v) for v in a[1:]])
+    for j in range(1, d):
+        P = P * p[j].reshape([-1 if k == j - 1 else 1 for k in range(d - 1)])
+    Q = box_eigenvalues(rest_ns, rest_hs, True)          # = P sum_{j>0} a_j / p_j
+    for i in range(len(a[0])):
+        np.divide(what[i], a[0][i] * P + p[0][i] * Q, out=what[i])
+    return what
+
+
 def box_solve(bounds, ns, f, g, compact: bool, ctx=None) -> tuple[list[np.ndarray], np.ndarray]:
     """Solve -Laplace(u) = f, u = g on the box `bounds` (d, 2) with ``ns[i]`` intervals on axis i.
 
@@ -98,21 +125,20 @@ def box_solve(bounds, ns, f, g, compact: bool, ctx=None) -> tuple[list[np.ndarra
         axes = box_axes(bounds, ns)
         hs = [a[1] - a[0] for a in axes]
         rhs, U = box_rhs(axes, f, g, compact)
-        lam = box_eigenvalues(ns, hs, compact)
     with phase("solve"):
         # one forward and one inverse DST-I over all axes and one pointwise division
         what = scipy.fft.dstn(rhs, type=1, overwrite_x=True)
-        what /= lam
+        divide_by_eigenvalues(what, ns, hs, compact)
         u = scipy.fft.idstn(what, type=1, overwrite_x=True)
     U[(slice(1, -1),) * len(ns)] = u
     return axes, U
 
 
 def box_memory_mb(n: int, dim: int, compact: bool) -> float:
-    """Peak memory of a d-box fast solve: about 5 interior-sized float64 arrays (right-hand side,
-    eigenvalues, transform, full grid; +1 for the compact scheme's full f) [estimated from the
-    arrays the code holds at once]."""
-    return (6 if compact else 5) * 8 * float(n + 1) ** dim / 2 ** 20
+    """Peak memory of a d-box fast solve: about 4 grid-sized float64 arrays (right-hand side,
+    transform, full grid, the harness's copy; +1 for the compact scheme's full f) [estimated
+    from the arrays the code holds at once]."""
+    return (5 if compact else 4) * 8 * float(n + 1) ** dim / 2 ** 20
 
 
 class _FastPoisson(_SparseFD):

@@ -18,7 +18,7 @@ from bench.fields import Field
 from bench.problems import make_problem
 from solvers import SOLVERS
 from solvers.base import Budget
-from solvers.fast_poisson import box_eigenvalues, box_solve
+from solvers.fast_poisson import box_eigenvalues, box_solve, divide_by_eigenvalues
 from solvers.fd import box_matrix
 from solvers.grid import (TensorLagrange, apply_stencil, box_axes, box_fold_boundary, box_operator, box_rhs,
                           default_n)
@@ -74,6 +74,9 @@ def test_box_eigenvalues_match_dense_operator(compact):
     np.testing.assert_allclose(np.sort(box_eigenvalues(ns, hs, compact).ravel()), np.linalg.eigvalsh(A),
                                rtol=1e-10)
     assert box_eigenvalues([4] * 8, [0.25] * 8, compact).min() > 0
+    w = np.random.default_rng(3).standard_normal([n - 1 for n in ns])
+    np.testing.assert_allclose(divide_by_eigenvalues(w.copy(), ns, hs, compact),
+                               w / box_eigenvalues(ns, hs, compact), rtol=1e-13)
 
 
 @pytest.mark.parametrize("ns", [[2, 3, 5], [3, 2, 2, 4], [6], [4, 5]])
