@@ -126,5 +126,5 @@ def test_solver_tags_dims_are_checked():
         dim = 3
 
     problem = dataclasses.replace(make_problem({"name": "sine"}), domain=Cube())
-    ok, reason = SOLVERS["fst5"](n=8).supports(problem)
-    assert not ok and reason == "solver fst5 handles dimensions [2], not 3"
+    ok, reason = SOLVERS["fd9"](n=8).supports(problem)     # fd9: rectangles only (fst5 takes d-boxes)
+    assert not ok and reason == "solver fd9 handles dimensions [2], not 3"
