@@ -20,7 +20,8 @@ install-test: $(VENV)/.installed-test
 
 bench: install
 	$(VENV)/bin/lapbench run suite=default
-	$(VENV)/bin/lapbench report report.suite=default report.name=default
+	$(VENV)/bin/lapbench report report.suite=default report.name=default > /dev/null
+	@cat results/reports/default/summary.md
 
 test: install-test
 	$(PY) -m pytest -q

@@ -99,23 +99,34 @@ def job(cfg) -> None:
     from omegaconf import OmegaConf
 
     from bench.run import execute, prepare
-    from bench.suites import expand_suite
+    from bench.suites import expand_suite, split_tolerance
     from bench.sweep import case_line
 
     hc = HydraConfig.get()
     session = Session(config_name=hc.job.config_name or "config")   # Hydra's app context is active
     total = None
+    tol = None
     index = cfg.get("case_index")
     suite = cfg.get("suite") or {}
     if suite.get("name") and index is not None:
         cases = expand_suite(OmegaConf.to_container(suite, resolve=True))
         total = len(cases)
         task = strip_overrides(list(hc.overrides.task), ("suite", "case_index"))
-        cfg = session.compose(cases[int(index)] + task)
+        case_ov, tol = split_tolerance(cases[int(index)])
+        cfg = session.compose(case_ov + task)
     case, opts = case_from_cfg(cfg)
     if suite.get("name") and index is not None:
         case.suite = suite.get("name")  # the case was composed without `suite=`; its record keeps the name
     prep = prepare(case, opts.results_dir)
+    if suite.get("name") and index is not None and tol is not None:   # a solve-to-tolerance search
+        from bench.sweep import tolerance_line
+        from bench.tolerance import metric_for, solve_to_tolerance
+
+        r = solve_to_tolerance(case, tol["tolerance"], metric_for(prep.problem.kind, tol["metric"]),
+                               results_dir=opts.results_dir, force=opts.force)
+        sys.stdout.write(tolerance_line(r, case.problem_label, index + 1, total) + "\n")
+        sys.stdout.flush()
+        return
     rec, skipped = execute(prep, force=opts.force, cores=_worker_share(hc))
     n = (index + 1) if index is not None else hc.job.num + 1
     # one write per line: parallel workers share this stream and must not interleave mid-line

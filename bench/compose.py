@@ -416,7 +416,7 @@ def plan_run(session: Session, args: Args) -> Plan:
                 prep, opts = _validate(session.compose(case_ov + rest), rest, suite=(suite.get("name"), case_ov))
                 prep.case.suite = suite.get("name")  # composed without `suite=`; its record keeps the name
                 if tol is not None:
-                    prep.tolerance = _tolerance_spec(prep, tol, suite.get("name"), plan.launcher)
+                    prep.tolerance = _tolerance_spec(prep, tol, suite.get("name"))
                 plan.cases.append((prep, opts))
             plan.combos, plan.suite = [combo], suite.get("name")
             return plan
@@ -425,14 +425,12 @@ def plan_run(session: Session, args: Args) -> Plan:
     return plan
 
 
-def _tolerance_spec(prep, tol: dict, suite: str, launcher: str) -> dict:
-    """Check a solve-to-tolerance case before anything runs: sequential launcher, a solver with a
-    declared knob (the one written `auto`, if any), a metric of the problem's kind."""
+def _tolerance_spec(prep, tol: dict, suite: str) -> dict:
+    """Check a solve-to-tolerance case before anything runs: a solver with a declared knob (the one
+    written `auto`, if any), a metric of the problem's kind. (Under a parallel launcher each search
+    is one job, its probes one after another.)"""
     from bench.tolerance import knob_for, metric_for
 
-    if launcher not in ("basic", None, ""):
-        raise ConfigError(f"suite {suite!r} solves to tolerances (`tolerances:`), which runs probe after probe "
-                          f"from this process; use the basic launcher, not `hydra/launcher={launcher}`")
     knob = knob_for(prep.case.solver)
     for key in tol["auto"]:
         if key != knob.key:

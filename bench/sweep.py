@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import sys
 
-__all__ = ["case_line", "Progress", "run_sequential"]
+__all__ = ["case_line", "tolerance_line", "Progress", "run_sequential"]
 
 
 def case_line(rec: dict, n: int, total: int | None, skipped: bool = False) -> str:
@@ -87,7 +87,6 @@ def _to_tolerance(prep, opts, progress: Progress, n: int, total: int) -> list[di
 
     spec = prep.tolerance
     records: list[dict] = []
-    where = f"[{n}{'/' + str(total) if total > 1 else ''}]"
 
     def on_probe(probe, rec):
         if rec is not None:
@@ -96,13 +95,17 @@ def _to_tolerance(prep, opts, progress: Progress, n: int, total: int) -> list[di
 
     r = solve_to_tolerance(prep.case, spec["tolerance"], spec["metric"], results_dir=prep.path.parent.parent,
                            force=bool(getattr(opts, "force", False)), on_probe=on_probe)
-    head = f"{where} {prep.case.problem_label} {r.solver} to {r.metric} <= {r.tolerance:.3g}: "
-    if r.reached:
-        progress.line(head + f"reached at {r.resolution()}, {r.metric}={r.error:.3e} time={_fmt_time(r.time_s)} "
-                             f"({len(r.probes)} probes)")
-    else:
-        progress.line(head + f"{r.status} - {' '.join(r.reason.split())} ({len(r.probes)} probes)")
+    progress.line(tolerance_line(r, prep.case.problem_label, n, total))
     return records
+
+
+def tolerance_line(r, problem: str, n: int, total: int | None) -> str:
+    """``[2/8] sine fst9 to rel_l2 <= 1e-06: reached at n=43, rel_l2=9.9e-07 time=1.2ms (9 probes)``."""
+    head = f"[{n}{'/' + str(total) if total and total > 1 else ''}] {problem} {r.solver} to {r.metric} <= {r.tolerance:.3g}: "
+    if r.reached:
+        return head + (f"reached at {r.resolution()}, {r.metric}={r.error:.3e} time={_fmt_time(r.time_s)} "
+                       f"({len(r.probes)} probes)")
+    return head + f"{r.status} - {' '.join(r.reason.split())} ({len(r.probes)} probes)"
 
 
 def run_sequential(cases, progress: Progress | None = None, start: int = 0) -> list[dict]:

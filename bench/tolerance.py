@@ -13,8 +13,9 @@ refinement ``refine`` for pixel grids. The search, for one case and one toleranc
    between the last probe that did not reach it and the first that did, so the result is the
    smallest knob value reaching the tolerance, assuming the error falls monotonically with the
    knob inside that bracket (the search states this assumption; it does not verify it).
-3. *Stops without reaching it.* An error floor (two probes in a row that lower the best error by
-   less than `FLOOR_GAIN`: round-off, a reference's own accuracy or a method's limit), a limit
+3. *Stops without reaching it.* An error floor (once refining has lowered the error, two probes
+   in a row that lower the best error by less than `FLOOR_GAIN`: round-off, a reference's own
+   accuracy or a method's limit; an unresolved plateau at coarse resolutions is not one), a limit
    (the case timed out, ran out of memory, or the solver's memory estimate refused it up front),
    any other failure of a probe, the knob's upper bound, or an unsupported pairing.
 
@@ -217,9 +218,6 @@ def solve_to_tolerance(case, tolerance: float, metric: str | None = None, result
     first = prepare(_with_knob(case, knob, knob.start), results_dir)
     metric = metric_for(first.problem.kind, metric)
     result = ToleranceResult(first.solver.name, knob, float(tolerance), metric, "failed")
-    if first.unsupported is not None:
-        result.status, result.reason = "unsupported", first.unsupported
-        return result
     seen: dict[int, tuple[Probe, dict | None]] = {}
 
     def probe(value: int) -> Probe:
@@ -253,7 +251,7 @@ def solve_to_tolerance(case, tolerance: float, metric: str | None = None, result
         return result
 
     # 1. grow until the tolerance is reached, a floor shows, a limit refuses, or the range ends
-    value, below, best, stale = knob.start, None, math.inf, 0
+    value, below, best, stale, converging = knob.start, None, math.inf, 0, False
     while True:
         p = probe(value)
         if p.status == "refused" or p.status in LIMIT_STATUSES:
@@ -265,7 +263,10 @@ def solve_to_tolerance(case, tolerance: float, metric: str | None = None, result
         if p.error <= tolerance:
             break
         below = value
-        stale = 0 if p.error < FLOOR_GAIN * best else stale + 1
+        if p.error < FLOOR_GAIN * best:
+            stale, converging = 0, converging or math.isfinite(best)
+        elif converging:          # a coarse, unresolved plateau before any gain is not a floor
+            stale += 1
         best = min(best, p.error)
         if stale >= FLOOR_PATIENCE:
             return stop("floor", f"the error stopped improving at {best:.3g} ({knob.key} up to {value})")

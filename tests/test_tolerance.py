@@ -28,6 +28,7 @@ class LawParams:
     p: float = 2.0
     floor: float = 0.0
     mb_per_n: float = 0.0     # memory estimate in MiB per unit of n (0: no estimate)
+    plateau_below: int = 0    # error exactly 1 (unresolved) for n below this
 
 
 class LawSolver(Solver):
@@ -46,7 +47,7 @@ class LawSolver(Solver):
 
     def _solve(self, problem, budget, ctx):
         q = self.params
-        eps = max(q.C * q.n ** -q.p, q.floor)
+        eps = 1.0 if q.n < q.plateau_below else max(q.C * q.n ** -q.p, q.floor)
         with ctx.phase("solve"):
             f = problem.f
         return Solution(evaluate=lambda pts: (1.0 + eps) * f(pts) / (2.0 * np.pi ** 2), info={"dofs": q.n})
@@ -196,3 +197,11 @@ def test_cli_tolerance_suite_wrong_knob_is_one_line(tmp_path):
     assert p.returncode == 2 and len(p.stderr.strip().splitlines()) == 1, p.stderr
     assert "the resolution knob of solver fem_p1 is `level`" in p.stderr
     assert not (tmp_path / "res").exists()
+
+
+def test_coarse_plateau_before_any_gain_is_not_a_floor(tmp_path):
+    # error 1 (unresolved) for n < 64, then 3 n^-2: probes 8, 16, 32 show no gain, which must not
+    # read as a floor; the answer stays n = 174 (3 / 174^2 <= 1e-4 < 3 / 173^2) [closed form]
+    r = solve_to_tolerance(_case(plateau_below=64), 1e-4, results_dir=tmp_path)
+    assert r.status == "reached" and r.value == 174
+    assert [q.error for q in r.probes[:3]] == pytest.approx([1.0, 1.0, 1.0], rel=1e-12)
