@@ -137,7 +137,7 @@ class SparseGridCT(Solver):
     """Sparse-grid combination technique over anisotropic 5-point fast Poisson solves."""
 
     name = "sparse_grid"
-    family = "sparse_grid"
+    family = "sparse"
     description = "sparse grids: combination technique over anisotropic DST-I solves (order 2 log^(d-1))"
     reference = ("Griebel, Schneider & Zenger 1992 (combination technique); Bungartz & Griebel, "
                  "Acta Numerica 13 (2004)")
