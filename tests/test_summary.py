@@ -63,8 +63,15 @@ def test_errors_below_the_reference_accuracy_are_not_numbers(tmp_path):
     recs = _ladder([1e-2, 1e-6, 1e-10], pparams={"k": 1, "l": 1, "reference": "computed", "reference_error": 1e-8})
     for r in recs:
         r["metrics"]["rel_max"] = r["metrics"]["max_abs"]      # max |u| = 1: relative = absolute
-    s, _ = _summary(tmp_path, recs)
+    write_all(tmp_path, recs)
+    rcfg = build_params(ReportConfig, {"results": [str(tmp_path)], "tolerances": [1e-2], "budgets": [100.0]})
+    tables = build_tables(*_load(rcfg), rcfg)
+    s = tables[0].summary
     assert s.table.iloc[0]["best within 100 s"] == "fd5 (n=32) < 1e-08 (reference accuracy)"
+    at_budget = next(t for t in tables if t.key.startswith("accuracy_at_budget"))
+    assert at_budget.display.iloc[0]["100 s"] == "< 1e-08 (reference accuracy) (n=32)"
+    best = next(t for t in tables if t.key == "best_error")
+    assert best.display.iloc[0]["fd5"].startswith("< 1e-08 (reference accuracy)")
     assert "1e-10" not in s.table.to_string() and "1.00e-10" not in s.table.to_string()
     assert floored(2e-9, 1e-8) == "< 1e-08 (reference accuracy)" and floored(2e-8, 1e-8) == "2.00e-08"
 

@@ -7,8 +7,8 @@ import math
 
 from bench.report.frame import _finite, _metric_name, _slug, natural_key
 from bench.report.options import FAIL_STATUSES, FAMILY_ORDER, NOT_REACHED, ReportConfig
-from bench.report.rules import (accuracy_at_budget, best_errors, order_fits, run_points, seed_summary,
-                                speedup_table, status_counts, time_to_tolerance)
+from bench.report.rules import (accuracy_at_budget, best_errors, floored, order_fits, problem_floors, run_points,
+                                seed_summary, speedup_table, status_counts, time_to_tolerance)
 from bench.report.summary import build_summary
 
 __all__ = ["Table", "results_table", "runs_table", "build_tables"]
@@ -100,12 +100,13 @@ def _cell_time(r) -> str:
     return f"{_fmt_time(r['time_s'])} ({r['config']}{mem}{_seed_note(r['seeds_reached'], r['seeds'])})"
 
 
-def _cell_err(r) -> str:
+def _cell_err(r, floor=None) -> str:
+    """An accuracy cell; below the reference's own accuracy `floor`, that bound instead of a number."""
     if r["unsupported"]:
         return "unsupported"
     if not r["within"]:
         return "none within budget"
-    return f"{_fmt_err(r['error'])} ({r['config']}{_seed_note(r['seeds_within'], r['seeds'])})"
+    return f"{floored(r['error'], floor)} ({r['config']}{_seed_note(r['seeds_within'], r['seeds'])})"
 
 
 def _method_rank(df, solver) -> tuple:
@@ -125,6 +126,7 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
     ab = accuracy_at_budget(recs, frame, cfg.budgets, cfg.metric, points=pts)
     sp = speedup_table(recs, frame, cfg.tolerances, cfg.metric, points=pts)
     metric = _metric_name(cfg)
+    floors = problem_floors(recs, frame, cfg.metric, cfg.eigen_metric)   # computed references' accuracy
     summ = build_summary(recs, frame, cfg, tt, ab, sp)      # the answers first (bench.report.summary)
     tables.append(Table("summary", "Summary", "Per problem the fastest method to each tolerance and the most "
                         f"accurate within each time budget ({summ.metric}; method time).", summ.table, summ.table,
@@ -149,7 +151,8 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
         disp = {}
         for solver, g in a.groupby("solver", sort=False):
             disp[solver] = {"method": solver, "family": g["family"].iloc[0],
-                            **{f"{B:g} s": _cell_err(r) for B, (_, r) in zip(g["budget_s"], g.iterrows())}}
+                            **{f"{B:g} s": _cell_err(r, floors.get(pid)) for B, (_, r) in
+                               zip(g["budget_s"], g.iterrows())}}
         tables.append(Table(f"accuracy_at_budget__{slug}", f"Accuracy at budget: {pid}",
                             f"Least {metric} each method reached within the time budget (seconds of method "
                             f"time); in brackets the configuration and how many of its seeds got there.",
@@ -177,7 +180,8 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
         rows = []
         for pid in sorted(best["problem_id"].unique(), key=natural_key):
             g = best[best["problem_id"] == pid].set_index("solver")
-            rows.append({"problem": pid, **{m: (_cell_err(g.loc[m]) if m in g.index else "") for m in methods}})
+            rows.append({"problem": pid, **{m: (_cell_err(g.loc[m], floors.get(pid)) if m in g.index else "")
+                                            for m in methods}})
         tables.append(Table("best_error", "Best error per problem",
                             f"Least {metric} each method reached on each problem with any of its "
                             "configurations and no time limit (upper median over seeds); read down a column "
