@@ -236,13 +236,16 @@ def box_operator(U: np.ndarray, hs, compact: bool) -> np.ndarray:
     in 2-D it is the Mehrstellen 9-point operator of `apply_stencil`.
     """
     d = U.ndim
+    # the 1-D factors of a term act on different axes and commute: the shortest axis goes first
+    # (on a 3-node face slab the result is one layer thick after the first factor)
+    order = sorted(range(d), key=lambda j: U.shape[j])
     total = None
     for i in range(d):
-        T = _along(U, i, -2.0 / hs[i] ** 2, 1.0 / hs[i] ** 2)
-        for j in range(d):
+        T = U
+        for j in order:
             if j == i:
-                continue
-            if compact:
+                T = _along(T, j, -2.0 / hs[j] ** 2, 1.0 / hs[j] ** 2)
+            elif compact:
                 T = _along(T, j, 10.0 / 12.0, 1.0 / 12.0)
             else:
                 T = T[tuple(slice(1, -1) if k == j else slice(None) for k in range(d))]
