@@ -190,7 +190,7 @@ def _words(text: str, width: int) -> str:
     text = " ".join(str(text).split())
     if len(text) <= width:
         return text
-    cut = text[: width - 1].rsplit(" ", 1)[0].rstrip(",;:")
+    cut = text[: width - 3].rsplit(" ", 1)[0].rstrip(",;:")
     return cut + "..."
 
 
@@ -250,7 +250,7 @@ def cmd_list(argv: list[str]) -> int:
         if isinstance(s, Exception):
             print(f"  {name:<14} (invalid config: {s})")
             continue
-        print(f"  {name:<14} {s.family:<9} {_words(s.description, 74)}")
+        print(f"  {name:<14} {s.family:<9} {_words(s.description, 73)}")
         if verbose:
             print(f"  {'':<14} {'':<9} options: {describe_fields(s.Params)}")
     unregistered = sorted(set(SOLVERS) - set(solvers))

@@ -49,7 +49,8 @@ class TimingConfig:
     """How deterministic methods are timed (conf/config.yaml, `timing`).
 
     A warm-up run, then repeats until at least `repeats` runs and `min_time` seconds of measured
-    time, stopping early once `max_time` seconds are measured (slow cases stay affordable) or
+    time, stopping early once `max_time` seconds are measured or have passed on the wall clock since
+    the first run (slow cases, and solvers with unmeasured work between phases, stay affordable) or
     `max_repeats` runs are done. A first run that alone takes `min_time` counts as a repeat
     instead of a warm-up: cold-start effects are negligible at that scale. Methods whose run
     records a training history, and non-deterministic ones, run once (the history is the
@@ -329,7 +330,7 @@ def _repeat(prep: Prepared, public, first_ctx, first):
     allowance = 0.5 * prep.budget.time_limit
     while len(runs) < cfg.max_repeats:
         measured = sum(sum(r.values()) for r in runs)
-        if warm == 0 and measured >= cfg.max_time:
+        if warm == 0 and (measured >= cfg.max_time or time.perf_counter() - start >= cfg.max_time):
             break
         if warm == 0 and len(runs) >= cfg.repeats and measured >= cfg.min_time:
             break

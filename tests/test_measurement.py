@@ -76,6 +76,19 @@ def test_slow_first_run_counts_and_max_time_caps_repeats(tmp_path):
     assert len(rec["timing"]["repeats"]) == 3
 
 
+def test_unmeasured_work_between_phases_counts_against_max_time(tmp_path):
+    """A fast solve (~1 ms measured) behind a 0.3 s pause outside its phases (SlowFD5): the
+    repeats stop on the wall clock at timing.max_time = 1 s after at most 1 / 0.3 + 1 runs,
+    instead of collecting 0.2 s of measured time (~200 runs, a minute of pauses)."""
+    case = Case(problem={"name": "sine"}, problem_label="sine",
+                solver={"_target_": "tests.fault_solvers.SlowFD5", "name": "slow_fd5", "n": 8, "delay": 0.3},
+                budget={"time_limit": 60.0})
+    case.timing = {"max_time": 1.0}
+    rec, _ = run_case(case, tmp_path)
+    assert rec["status"] == "ok", rec["reason"]
+    assert 1 <= len(rec["timing"]["repeats"]) <= 4, rec["timing"]["repeats"]
+
+
 def test_learned_methods_run_once(tmp_path):
     """A run that records a training history is its own measurement: one run, no repeats."""
     case = Case(problem={"name": "sine"}, problem_label="sine",

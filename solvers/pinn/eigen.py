@@ -237,7 +237,11 @@ def _trace_objective(nets, fields, W):
         B = (V.T @ (W[:, None] * V)).double()
         A = torch.einsum("mkd,m,mld->kl", G, W, G).double()
         L, info = torch.linalg.cholesky_ex(B)
-        if int(info) != 0:
+        # Rounding can leave a tiny positive pivot where B is singular (two equal trial functions
+        # give l22^2 = b - (b / sqrt(b))^2 ~ eps b): a squared pivot below 64 eps of its diagonal
+        # entry, in the precision B was formed in, is a lost rank too [common practice].
+        pivots = torch.diagonal(L) ** 2
+        if int(info) != 0 or bool((pivots <= 64 * torch.finfo(V.dtype).eps * torch.diagonal(B)).any()):
             raise Diverged(f"the mass matrix of the {len(nets)} trial functions lost rank at "
                            f"step {step} (they became linearly dependent)", step)
         Y = torch.linalg.solve_triangular(L, A, upper=False)
