@@ -1,7 +1,7 @@
 """lapbench: error-against-runtime benchmarks of PINNs and classical solvers.
 
 The package's names for notebooks and scripts (`run_case`, `run_suite`, `load_results`,
-`make_report`, ...) live in `bench.api` and are loaded on first use, so that importing any
+`make_report`, ...) live in `lapbench.api` and are loaded on first use, so that importing any
 submodule stays cheap.
 """
 _API = ("run_case", "run_suite", "load_results", "make_report", "ConfigError")
@@ -11,7 +11,7 @@ __all__ = list(_API)
 
 def __getattr__(name: str):
     if name in _API:
-        from bench import api
+        from lapbench import api
 
         return getattr(api, name)
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

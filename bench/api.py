@@ -23,8 +23,8 @@ import io
 import re
 from pathlib import Path
 
-from bench.compose import Args, Session, plan_run
-from bench.config import ConfigError, build_params
+from lapbench.compose import Args, Session, plan_run
+from lapbench.config import ConfigError, build_params
 
 __all__ = ["run_case", "run_suite", "load_results", "make_report", "overrides_from", "ConfigError"]
 
@@ -78,8 +78,8 @@ def _argv(problem, solver, suite, problem_options, solver_options, overrides, re
 
 
 def _run(argv: list[str], progress: bool):
-    from bench.records import to_frame
-    from bench.sweep import Progress, run_sequential
+    from lapbench.records import to_frame
+    from lapbench.sweep import Progress, run_sequential
 
     args = Args(argv)
     if args.multirun:
@@ -121,7 +121,7 @@ def run_suite(name: str, *, overrides: list[str] | tuple = (), results_dir: str 
 def load_results(results: str | Path | list = "results", *, suite: str | None = None, problem: str | None = None,
          solver: str | None = None):
     """Records under one or more results folders as a DataFrame (one row per record)."""
-    from bench.records import load_records, to_frame
+    from lapbench.records import load_records, to_frame
 
     folders = [results] if isinstance(results, (str, Path)) else list(results)
     return to_frame(load_records([str(f) for f in folders], suite=suite, problem=problem, solver=solver))
@@ -137,7 +137,7 @@ def make_report(*, suite: str | None = None, name: str | None = None, results: l
     """
     from omegaconf import OmegaConf
 
-    from bench.report import ReportConfig, write_report
+    from lapbench.report import ReportConfig, write_report
 
     opts = dict(options or {})
     for key, val in (("suite", suite), ("name", name), ("formats", formats)):

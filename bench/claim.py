@@ -2,7 +2,7 @@
 
 Given a problem, a claimed error (metric named) and a claimed time (optionally the claimed
 hardware in words), `claim_check` solves the problem to the claimed error with every classical
-method that supports it (`bench.tolerance.solve_to_tolerance`, each probe an ordinary recorded
+method that supports it (`lapbench.tolerance.solve_to_tolerance`, each probe an ordinary recorded
 case) and returns a `Verdict`: the fastest classical method that reached the error, its
 resolution and time here, the ratio claimed time / classical time, the seeds and repeats behind
 the time, every method's outcome, and the rules applied. `Verdict.to_markdown()` and
@@ -22,8 +22,8 @@ import math
 from pathlib import Path
 from typing import Callable
 
-from bench.config import ConfigError
-from bench.tolerance import EIGEN_METRICS, SOLUTION_METRICS, ToleranceResult, metric_for, solve_to_tolerance
+from lapbench.config import ConfigError
+from lapbench.tolerance import EIGEN_METRICS, SOLUTION_METRICS, ToleranceResult, metric_for, solve_to_tolerance
 
 __all__ = ["Claim", "Verdict", "claim_check", "classical_solvers", "CITATION"]
 
@@ -63,9 +63,9 @@ class Claim:
 
 def classical_solvers(problem) -> list[str]:
     """Registered classical solvers with a resolution knob that support `problem`, in registry order."""
-    from bench.report.options import LEARNED_FAMILIES
-    from bench.tolerance import KNOBS
-    from solvers import SOLVERS
+    from lapbench.report.options import LEARNED_FAMILIES
+    from lapbench.tolerance import KNOBS
+    from lapbench.solvers import SOLVERS
 
     out = []
     for name, cls in SOLVERS.items():
@@ -171,7 +171,7 @@ class Verdict:
         return "\n".join(lines) + "\n"
 
     def to_latex(self) -> str:
-        from bench.report.writers import tex_escape
+        from lapbench.report.writers import tex_escape
 
         rows = self.rows()
         cols = list(rows[0]) if rows else []
@@ -206,15 +206,15 @@ def claim_check(problem: dict, claim: Claim, solvers: dict | list | None = None,
         Solver configs by name (``{name: config}``), or names (default configs); None: every
         classical method that supports the problem (`classical_solvers`).
     seed, threads, budget, timing, results_dir, problem_label, force
-        As for any case (`bench.run.Case`); probes' records go to `results_dir`.
+        As for any case (`lapbench.run.Case`); probes' records go to `results_dir`.
     command : str
         The command line that reproduces the verdict (shown in it).
     on_probe : callable or None
         ``on_probe(solver, probe, record)`` after every probe.
     """
-    from bench.problems import make_problem
-    from bench.records import environment
-    from bench.run import Case, effective_threads
+    from lapbench.problems import make_problem
+    from lapbench.records import environment
+    from lapbench.run import Case, effective_threads
 
     prob = make_problem(problem)
     try:
@@ -232,7 +232,7 @@ def claim_check(problem: dict, claim: Claim, solvers: dict | list | None = None,
     cases = {name: Case(problem=problem, solver=dict(cfg), problem_label=label, seed=seed, threads=threads,
                         budget=dict(budget or {}), timing=dict(timing or {}), suite="claim")
              for name, cfg in solvers.items()}
-    from bench.tolerance import knob_for
+    from lapbench.tolerance import knob_for
 
     for cfg in solvers.values():          # every solver has a knob: checked before anything runs
         knob_for(cfg)
@@ -246,7 +246,7 @@ def claim_check(problem: dict, claim: Claim, solvers: dict | list | None = None,
         if r.record is not None or any(p.path for p in r.probes):
             rec = r.record
             if rec is None:
-                from bench.records import read_record
+                from lapbench.records import read_record
 
                 rec = next((read_record(p.path) for p in r.probes if p.path), None)
             if rec:

@@ -1,8 +1,8 @@
 """The `lapbench` command line: the top floor; nothing imports it.
 
 Bad input never reaches a half-written state: every case of a run or sweep is composed and
-validated (bench.compose) before the first one starts; errors print one line and exit with
-code 2. A sequential run or suite is run by bench.sweep from this process; parallel and
+validated (lapbench.compose) before the first one starts; errors print one line and exit with
+code 2. A sequential run or suite is run by lapbench.sweep from this process; parallel and
 cluster launchers get one Hydra job per case (`job`).
 """
 from __future__ import annotations
@@ -11,8 +11,8 @@ import sys
 from pathlib import Path
 from typing import NoReturn
 
-from bench.compose import Args, Session, case_from_cfg, conf_dir, plan_run, strip_overrides
-from bench.config import ConfigError, build_params
+from lapbench.compose import Args, Session, case_from_cfg, conf_dir, plan_run, strip_overrides
+from lapbench.config import ConfigError, build_params
 
 EXIT_USAGE = 2
 USAGE = """usage: lapbench <command> [options] [overrides]      (lapbench <command> --help: its options)
@@ -82,7 +82,7 @@ def _worker_share(hc) -> int | None:
     """This worker's share of the cores under the sweep's Hydra launcher (None: sequential)."""
     from omegaconf import OmegaConf
 
-    from bench.run import launcher_share
+    from lapbench.run import launcher_share
 
     if hc.mode.name != "MULTIRUN":
         return None
@@ -98,9 +98,9 @@ def job(cfg) -> None:
     from hydra.core.hydra_config import HydraConfig
     from omegaconf import OmegaConf
 
-    from bench.run import execute, prepare
-    from bench.suites import expand_suite, split_tolerance
-    from bench.sweep import case_line
+    from lapbench.run import execute, prepare
+    from lapbench.suites import expand_suite, split_tolerance
+    from lapbench.sweep import case_line
 
     hc = HydraConfig.get()
     session = Session(config_name=hc.job.config_name or "config")   # Hydra's app context is active
@@ -119,8 +119,8 @@ def job(cfg) -> None:
         case.suite = suite.get("name")  # the case was composed without `suite=`; its record keeps the name
     prep = prepare(case, opts.results_dir)
     if suite.get("name") and index is not None and tol is not None:   # a solve-to-tolerance search
-        from bench.sweep import tolerance_line
-        from bench.tolerance import metric_for, solve_to_tolerance
+        from lapbench.sweep import tolerance_line
+        from lapbench.tolerance import metric_for, solve_to_tolerance
 
         r = solve_to_tolerance(case, tol["tolerance"], metric_for(prep.problem.kind, tol["metric"]),
                                results_dir=opts.results_dir, force=opts.force)
@@ -150,7 +150,7 @@ def _hydra_main(args: Args, overrides: list[str], multirun: bool) -> int:
 
 
 def cmd_run(argv: list[str]) -> int:
-    from bench.sweep import run_sequential
+    from lapbench.sweep import run_sequential
 
     args = Args(argv)
     if args.help:
@@ -197,10 +197,10 @@ def _words(text: str, width: int) -> str:
 def cmd_list(argv: list[str]) -> int:
     from omegaconf import OmegaConf
 
-    from bench.config import describe_fields
-    from bench.problems import make_problem
-    from bench.run import make_solver
-    from solvers import SOLVERS
+    from lapbench.config import describe_fields
+    from lapbench.problems import make_problem
+    from lapbench.run import make_solver
+    from lapbench.solvers import SOLVERS
 
     verbose = any(a in ("-v", "--verbose") for a in argv)
     args = Args([a for a in argv if a not in ("-v", "--verbose")])
@@ -214,8 +214,8 @@ def cmd_list(argv: list[str]) -> int:
             if name == "none":
                 continue
             try:
-                from bench.compose import locate_config_file
-                from bench.suites import describe_suite, expand_suite
+                from lapbench.compose import locate_config_file
+                from lapbench.suites import describe_suite, expand_suite
 
                 cfg = session.compose(sp + [f"suite={name}"])
                 s = OmegaConf.to_container(cfg.suite, resolve=True)
@@ -259,7 +259,7 @@ def cmd_list(argv: list[str]) -> int:
     names = [n for n, s in solvers.items() if not isinstance(s, Exception)]
     good = {n: p for n, p in problems.items() if not isinstance(p, Exception)}
     print("\nsupported pairings (y = runs, . = unsupported), by domain kind, classical then learned:")
-    from bench.report import LEARNED_FAMILIES
+    from lapbench.report import LEARNED_FAMILIES
 
     for kind in sorted({p.domain.kind for p in good.values()}):
         rows = {n: p for n, p in good.items() if p.domain.kind == kind}
@@ -284,7 +284,7 @@ def cmd_list(argv: list[str]) -> int:
 def cmd_report(argv: list[str]) -> int:
     from omegaconf import OmegaConf
 
-    from bench.report import ReportConfig, write_report
+    from lapbench.report import ReportConfig, write_report
 
     args = Args(argv)
     if args.help:
@@ -295,7 +295,7 @@ def cmd_report(argv: list[str]) -> int:
         rcfg = build_params(ReportConfig, OmegaConf.to_container(cfg.report, resolve=True), prefix="report")
     results_dir = OmegaConf.select(cfg, "results_dir") or "results"
     out, table = write_report(rcfg, out_root=Path(results_dir) / "reports")
-    from bench.report import to_markdown
+    from lapbench.report import to_markdown
 
     print(to_markdown(table) if len(table) else "(no records found)")
     if (out / "summary.md").is_file():   # the answers last, where the terminal shows them
@@ -309,7 +309,7 @@ def cmd_report(argv: list[str]) -> int:
 # ------------------------------------------------------------------------------------------------
 def _check_stage(argv: list[str], run) -> int:
     """`check` and `baseline`: plan the suite's cases, run them first when asked, then `run(plan)`."""
-    from bench import check
+    from lapbench import check
 
     if any(a in ("-h", "--help") for a in argv):
         print(check.CHECK_USAGE)
@@ -320,13 +320,13 @@ def _check_stage(argv: list[str], run) -> int:
 
 
 def cmd_check(argv: list[str]) -> int:
-    from bench import check
+    from lapbench import check
 
     return _check_stage(argv, check.run_check)
 
 
 def cmd_baseline(argv: list[str]) -> int:
-    from bench import check
+    from lapbench import check
 
     return _check_stage(argv, check.run_baseline)
 
@@ -341,13 +341,13 @@ def _run_first(plan) -> None:
 
 
 def cmd_conform(argv: list[str]) -> int:
-    from bench.conformance import conform
+    from lapbench.conformance import conform
 
     return conform(argv)
 
 
 def cmd_tones(argv: list[str]) -> int:
-    from bench.tones import cmd_tones as tones
+    from lapbench.tones import cmd_tones as tones
 
     if any(a in ("-h", "--help") for a in argv):
         print((tones.__doc__ or "").strip())
@@ -387,10 +387,10 @@ def cmd_claim(argv: list[str]) -> int:
     import yaml
     from omegaconf import OmegaConf
 
-    from bench.claim import Claim, claim_check, classical_solvers
-    from bench.problems import make_problem
-    from bench.records import write_atomic
-    from bench.tolerance import knob_for
+    from lapbench.claim import Claim, claim_check, classical_solvers
+    from lapbench.problems import make_problem
+    from lapbench.records import write_atomic
+    from lapbench.tolerance import knob_for
 
     opts, rest = {}, []
     for a in argv:
@@ -398,7 +398,7 @@ def cmd_claim(argv: list[str]) -> int:
         if key.startswith("claim.") and eq:
             field = key[len("claim."):]
             if field not in CLAIM_KEYS:
-                from bench.compose import unknown_field
+                from lapbench.compose import unknown_field
 
                 raise ConfigError(unknown_field(key, list(CLAIM_KEYS)).replace("`claim.", "`claim.", 1))
             try:
@@ -451,7 +451,7 @@ def cmd_claim(argv: list[str]) -> int:
     verdict = claim_check(case.problem, claim, configs, seed=case.seed, threads=case.threads, budget=case.budget,
                           timing=case.timing, results_dir=ropts.results_dir, problem_label=case.problem_label,
                           force=ropts.force, command=command, on_probe=progress)
-    from bench.report.frame import _slug
+    from lapbench.report.frame import _slug
 
     out = Path(ropts.results_dir) / "claims" / (name or _slug(verdict.problem_id))
     out.mkdir(parents=True, exist_ok=True)

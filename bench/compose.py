@@ -2,7 +2,7 @@
 
 The layer below the command line: `Session` composes configs (Hydra's compose API, one session
 per config name and search path, so two config names in one process never share a cache),
-turns each into a validated `bench.run.Case`, and `plan_run` expands a request (one case, a
+turns each into a validated `lapbench.run.Case`, and `plan_run` expands a request (one case, a
 --multirun sweep, a suite) into prepared cases before anything runs. Errors are ConfigError,
 one line naming the field; the command line turns them into exit code 2.
 """
@@ -12,7 +12,7 @@ import dataclasses
 import re
 from pathlib import Path
 
-from bench.config import ConfigError, build_params, conf_dir, positive
+from lapbench.config import ConfigError, build_params, conf_dir, positive
 
 __all__ = ["Args", "Session", "conf_dir", "case_from_cfg", "plan_run", "strip_overrides",
            "replace_mapping_overrides", "annotate_config_error", "locate_config_file", "INTERNAL_KEYS"]
@@ -302,7 +302,7 @@ def case_from_cfg(cfg):
 
     from omegaconf import OmegaConf
 
-    from bench.run import Case
+    from lapbench.run import Case
 
     @dataclasses.dataclass
     class RootOptions:
@@ -353,7 +353,7 @@ def strip_overrides(overrides: list[str], keys: tuple[str, ...]) -> list[str]:
 
 def _validate(cfg, overrides: list[str], suite=None):
     """Build and prepare one composed case; a bad field's error names the file or override that set it."""
-    from bench.run import prepare
+    from lapbench.run import prepare
 
     try:
         case, opts = case_from_cfg(cfg)
@@ -366,7 +366,7 @@ def _validate(cfg, overrides: list[str], suite=None):
 class Plan:
     """A validated request: every case prepared, and how Hydra would launch it."""
 
-    cases: list              # [(bench.run.Prepared, root options)], in run order
+    cases: list              # [(lapbench.run.Prepared, root options)], in run order
     combos: list             # override lists, one per Hydra job (a suite: one, swept by case_index)
     suite: str | None = None
     launcher: str = "basic"  # the hydra/launcher choice
@@ -386,7 +386,7 @@ def plan_run(session: Session, args: Args) -> Plan:
     from hydra.core.override_parser.overrides_parser import OverridesParser
     from omegaconf import OmegaConf
 
-    from bench.suites import expand_suite, split_tolerance
+    from lapbench.suites import expand_suite, split_tolerance
 
     base = args.searchpath_overrides() + args.overrides
     if args.multirun:
@@ -429,7 +429,7 @@ def _tolerance_spec(prep, tol: dict, suite: str) -> dict:
     """Check a solve-to-tolerance case before anything runs: a solver with a declared knob (the one
     written `auto`, if any), a metric of the problem's kind. (Under a parallel launcher each search
     is one job, its probes one after another.)"""
-    from bench.tolerance import knob_for, metric_for
+    from lapbench.tolerance import knob_for, metric_for
 
     knob = knob_for(prep.case.solver)
     for key in tol["auto"]:

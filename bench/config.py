@@ -217,4 +217,4 @@ def conf_dir() -> Path:
             return cand
     import importlib.resources
 
-    return Path(str(importlib.resources.files("bench.conf")))
+    return Path(str(importlib.resources.files("lapbench.conf")))

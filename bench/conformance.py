@@ -14,7 +14,7 @@ from typing import Callable
 
 import numpy as np
 
-from bench.config import ConfigError
+from lapbench.config import ConfigError
 
 __all__ = ["CheckFailure", "NotApplicable", "CHECKS", "run_checks", "candidate_problems",
            "seed_everything"]
@@ -44,7 +44,7 @@ def seed_everything(seed: int) -> None:
 
 
 def _conf_problem_dir() -> Path:
-    from bench.config import conf_dir
+    from lapbench.config import conf_dir
 
     return conf_dir() / "problem"
 
@@ -60,7 +60,7 @@ def candidate_problems():
     (preferred ones first) and cached: building all of them costs seconds of sympy work."""
     from omegaconf import OmegaConf
 
-    from bench.problems import make_problem
+    from lapbench.problems import make_problem
 
     paths = sorted(_conf_problem_dir().glob("*.yaml"),
                    key=lambda p: (p.stem not in PREFERRED,
@@ -90,7 +90,7 @@ def supported_problem(solver):
 
 
 def _solve(solver, problem, seed=0):
-    from solvers.base import Budget, RunContext
+    from lapbench.solvers.base import Budget, RunContext
 
     seed_everything(seed)
     ctx = RunContext(seed=seed)
@@ -105,7 +105,7 @@ def _probe_points(problem, m=50, seed=1):
 # -- the checks -----------------------------------------------------------------------------------
 def check_interface(make: Callable):
     """Class attributes and methods of the contract are present and well-formed."""
-    from solvers.base import Solver, Tags
+    from lapbench.solvers.base import Solver, Tags
 
     s = make()
     for attr in ("name", "family", "description"):
@@ -114,12 +114,12 @@ def check_interface(make: Callable):
     if not dataclasses.is_dataclass(getattr(type(s), "Params", None)):
         raise CheckFailure("`Params` must be a dataclass of the solver's options")
     if not isinstance(getattr(s, "tags", None), Tags):
-        raise CheckFailure("`tags` must be a solvers.base.Tags")
+        raise CheckFailure("`tags` must be a lapbench.solvers.base.Tags")
     for meth in ("supports", "solve", "resolution"):
         if not callable(getattr(s, meth, None)):
             raise CheckFailure(f"method `{meth}` is missing")
     if not isinstance(s, Solver):
-        raise CheckFailure("must subclass solvers.base.Solver (the base class owns timing and status)")
+        raise CheckFailure("must subclass lapbench.solvers.base.Solver (the base class owns timing and status)")
     res = s.resolution()
     if not isinstance(res, dict):
         raise CheckFailure(f"resolution() must return a dict, got {type(res).__name__}")
@@ -127,7 +127,7 @@ def check_interface(make: Callable):
 
 def check_solution_shapes(make: Callable):
     """solve() returns a Solution whose evaluate maps (m, 2) points to m finite float values."""
-    from solvers.base import Solution
+    from lapbench.solvers.base import Solution
 
     s = make()
     label, prob = supported_problem(s)
@@ -186,7 +186,7 @@ def check_determinism(make: Callable):
 
 def check_unsupported(make: Callable):
     """A problem outside the solver's tags is refused by supports() and by solve() (Unsupported)."""
-    from solvers.base import Unsupported
+    from lapbench.solvers.base import Unsupported
 
     s = make()
     for label, prob in _problems():
@@ -207,7 +207,7 @@ def check_unsupported(make: Callable):
 
 def check_never_sees_exact(make: Callable):
     """The solver runs on the public view (no exact solution; boundary data only on the boundary)."""
-    from bench.problems import BoundaryDataError
+    from lapbench.problems import BoundaryDataError
 
     s = make()
     _, prob = supported_problem(s)
@@ -234,7 +234,7 @@ def check_evaluate_consistent(make: Callable):
 
 def check_accuracy_sanity(make: Callable):
     """On a smooth problem the answer is at least roughly right (relative L2 below 0.5)."""
-    from bench.metrics import solution_errors
+    from lapbench.metrics import solution_errors
 
     s = make()
     label, prob = supported_problem(s)
@@ -296,9 +296,9 @@ CHECK_TIMEOUT = 600.0
 
 
 def _run_check_isolated(name: str, make, timeout: float) -> tuple[str, str, str]:
-    """One conformance check in a forked child (bench.isolate): a crash or a hang fails the check,
+    """One conformance check in a forked child (lapbench.isolate): a crash or a hang fails the check,
     not the command."""
-    from bench.isolate import run_isolated
+    from lapbench.isolate import run_isolated
 
     def check():
         from threadpoolctl import threadpool_limits
@@ -328,8 +328,8 @@ def conform(argv: list[str]) -> int:
 
     from omegaconf import OmegaConf
 
-    from bench.compose import Args, Session, annotate_config_error, locate_config_file
-    from bench.run import make_solver
+    from lapbench.compose import Args, Session, annotate_config_error, locate_config_file
+    from lapbench.run import make_solver
 
     args = Args(argv)
     if args.help:

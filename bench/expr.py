@@ -15,7 +15,7 @@ from functools import lru_cache
 import numpy as np
 import sympy as sp
 
-from bench.config import ConfigError
+from lapbench.config import ConfigError
 
 __all__ = ["ExpressionError", "parse", "Manufactured", "X", "Y", "FUNCTIONS"]
 
@@ -149,8 +149,8 @@ def parse(text: str, field: str = "problem.u") -> sp.Expr:
 
 def _numeric(expr: sp.Expr):
     """Vectorised numpy function of points (m, 2) for a sympy expression in x, y; evaluates on
-    tensor grids by broadcasting (bench.fields.Field)."""
-    from bench.fields import Field
+    tensor grids by broadcasting (lapbench.fields.Field)."""
+    from lapbench.fields import Field
 
     return Field(sp.lambdify((X, Y), expr, modules="numpy"))
 

@@ -1,4 +1,4 @@
-"""Image measures for the imaging problems (`bench.problems.imaging`): PSNR of the hole.
+"""Image measures for the imaging problems (`lapbench.problems.imaging`): PSNR of the hole.
 
 PSNR = 10 log10(R^2 / MSE) with R the data range (1 for images in [0, 1]) and MSE the mean
 squared difference over the hole's pixels [common practice; the same definition as
@@ -15,7 +15,7 @@ import numpy as np
 
 __all__ = ["psnr", "image_measures", "DATA_RANGE"]
 
-DATA_RANGE = 1.0      # images are floats in [0, 1] (bench.images.load_image)
+DATA_RANGE = 1.0      # images are floats in [0, 1] (lapbench.images.load_image)
 
 
 def psnr(estimate, truth, data_range: float = DATA_RANGE) -> float:

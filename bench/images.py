@@ -7,14 +7,14 @@ ITU-R BT.709 luminance through skimage.color.rgb2gray for colour images, or one 
 anti-aliasing to the requested (rows, cols).
 
 A `LatticeField` is the bilinear interpolant of values on a square lattice: the pixel values
-of an image placed with its pixel centres on the pixel corners of a `bench.domains.Mask`
+of an image placed with its pixel centres on the pixel corners of a `lapbench.domains.Mask`
 (value at node (i, j) = point (x0 + i h, y0 + j h), i along x, j along y).
 """
 from __future__ import annotations
 
 import numpy as np
 
-from bench.config import ConfigError
+from lapbench.config import ConfigError
 
 __all__ = ["IMAGES", "CHANNELS", "GREY_IMAGES", "check_channel", "load_image", "LatticeField", "image_to_lattice", "lattice_to_image"]
 

@@ -4,7 +4,7 @@ The parent polls the child's pipe, the clock and the child's resident memory, ki
 limit, and turns every ending into an `Outcome`: the callable's (pickled) result, or a status
 (``timeout``, ``out_of_memory``, ``crashed``) with a reason. A child dies with its parent
 (PR_SET_PDEATHSIG), and an interrupted parent kills its child before re-raising, so no orphan
-keeps running. Used by bench.run for cases and by bench.plugins for conformance checks.
+keeps running. Used by lapbench.run for cases and by lapbench.plugins for conformance checks.
 """
 from __future__ import annotations
 

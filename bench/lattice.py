@@ -40,7 +40,7 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.config import ConfigError
+from lapbench.config import ConfigError
 
 __all__ = ["Torus", "TorusSpectrum", "BUILTIN", "d_plus_basis", "direct_sum", "parse_basis", "gram",
            "inverse", "lll_reduce", "short_vector_counts", "vectors_of_norm", "sublattice_index", "shortest_vectors_index",

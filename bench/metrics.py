@@ -254,8 +254,8 @@ def monitor_fn(problem, eval_set):
 
 def image_errors(problem, solution, eval_set) -> dict:
     """Image problems: `solution_errors` against the discrete reference, plus the PSNRs of the
-    hole pixels (`bench.image_metrics`)."""
-    from bench.image_metrics import image_measures
+    hole pixels (`lapbench.image_metrics`)."""
+    from lapbench.image_metrics import image_measures
 
     out = solution_errors(problem, solution, eval_set)
     out.update(image_measures(problem, checked_values(solution.evaluate, problem.hole_points)))

@@ -18,7 +18,7 @@ import importlib
 from functools import lru_cache
 from pathlib import Path
 
-from bench.config import ConfigError, _one_line, import_object
+from lapbench.config import ConfigError, _one_line, import_object
 
 __all__ = ["import_object", "load_plugin_class", "check_contract", "make_plugin_solver", "provenance",
            "CONTRACT_ATTRIBUTES", "CONTRACT_METHODS"]
@@ -33,14 +33,14 @@ CONTRACT_METHODS = ("supports", "solve", "resolution", "preload")
 def check_contract(cls) -> list[str]:
     """The parts of the solver contract that class `cls` lacks or gets wrong (empty: complete).
 
-    The contract (DEVELOPERS.md, "Plug-in solvers"): subclass `solvers.base.Solver`, whose
+    The contract (DEVELOPERS.md, "Plug-in solvers"): subclass `lapbench.solvers.base.Solver`, whose
     public ``solve()`` owns validation, timing and status for every method alike; implement
     ``_solve(problem, budget, ctx) -> Solution``; set the class attributes `name` and `family`
     (non-empty strings), `description` (string), `Params` (a dataclass of the options) and
-    `tags` (a `solvers.base.Tags`). For a class that does not subclass `Solver`, the public
+    `tags` (a `lapbench.solvers.base.Tags`). For a class that does not subclass `Solver`, the public
     methods and attributes it lacks are named as well.
     """
-    from solvers.base import Solver, Tags
+    from lapbench.solvers.base import Solver, Tags
 
     problems: list[str] = []
     is_sub = isinstance(cls, type) and issubclass(cls, Solver)
@@ -48,7 +48,7 @@ def check_contract(cls) -> list[str]:
         missing = [f"missing attribute `{a}`" for a in CONTRACT_ATTRIBUTES if not hasattr(cls, a)]
         missing += [f"missing method `{m}`" for m in CONTRACT_METHODS + ("_solve",)
                     if not callable(getattr(cls, m, None))]
-        return ["does not subclass solvers.base.Solver"] + missing
+        return ["does not subclass lapbench.solvers.base.Solver"] + missing
     if cls._solve is Solver._solve:
         problems.append("missing method `_solve(problem, budget, ctx)`")
     for meth in CONTRACT_METHODS:
@@ -66,7 +66,7 @@ def check_contract(cls) -> list[str]:
     if not (isinstance(params, type) and dataclasses.is_dataclass(params)):
         problems.append("attribute `Params` must be a dataclass of the solver's options")
     if not isinstance(getattr(cls, "tags", None), Tags):
-        problems.append("attribute `tags` must be a solvers.base.Tags")
+        problems.append("attribute `tags` must be a lapbench.solvers.base.Tags")
     return problems
 
 
@@ -127,7 +127,7 @@ def make_plugin_solver(cfg: dict):
     plug-in may not take a built-in solver's name. The instance carries ``provenance()`` for
     its records.
     """
-    from solvers import SOLVERS
+    from lapbench.solvers import SOLVERS
 
     target = cfg.get("_target_")
     cls = load_plugin_class(target)

@@ -329,7 +329,7 @@ def to_frame(records):
             "h": c.get("h"), "peak_rss_mb": c.get("peak_rss_mb"), "peak_rss_delta_mb": c.get("peak_rss_delta_mb"),
             "t_setup": t.get("setup"), "t_solve": t.get("solve"), "t_evaluate": t.get("evaluate"),
             "t_total": t.get("total"), "t_wall": t.get("wall"),
-            # repeated timing of deterministic methods (bench.run): every repeat's setup + solve
+            # repeated timing of deterministic methods (lapbench.run): every repeat's setup + solve
             "t_min": rt.get("min"), "t_max": rt.get("max"),
             "repeats": len(rt.get("repeats") or []) or 1, "t_statistic": rt.get("statistic", "single"),
             "problem_config": r["problem"].get("config_hash") or problem_config_hash(r["problem"].get("config")),

@@ -17,9 +17,9 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.config import ConfigError, build_params, positive
-from bench.isolate import cpu_times, rss_mb, run_isolated
-from bench.records import (SCHEMA_VERSION, config_hash, environment, problem_config_hash, problem_id, read_record,
+from lapbench.config import ConfigError, build_params, positive
+from lapbench.isolate import cpu_times, rss_mb, run_isolated
+from lapbench.records import (SCHEMA_VERSION, config_hash, environment, problem_config_hash, problem_id, read_record,
                            resolution_label,
                            record_path, write_record)
 
@@ -103,16 +103,16 @@ class Prepared:
     path: Path
     unsupported: str | None = None
     timing: TimingConfig = dataclasses.field(default_factory=TimingConfig)
-    tolerance: dict | None = None   # solve-to-tolerance cases of a suite: {"tolerance", "metric"} (bench.tolerance)
+    tolerance: dict | None = None   # solve-to-tolerance cases of a suite: {"tolerance", "metric"} (lapbench.tolerance)
 
 
 def make_solver(cfg: dict):
     """Instantiate a solver from its config: registry name, or an importable `_target_` class."""
-    from solvers import get_solver
+    from lapbench.solvers import get_solver
 
     cfg = dict(cfg)
     if cfg.get("_target_"):
-        from bench.plugins import make_plugin_solver  # contract check, provenance
+        from lapbench.plugins import make_plugin_solver  # contract check, provenance
 
         return make_plugin_solver(cfg)
     cls = get_solver(cfg.get("name"))
@@ -120,8 +120,8 @@ def make_solver(cfg: dict):
 
 
 def problem_key(prep: "Prepared") -> str:
-    """The record's problem id: label, every knob and the domain (bench.records.problem_id)."""
-    from bench.problems import PROBLEMS
+    """The record's problem id: label, every knob and the domain (lapbench.records.problem_id)."""
+    from lapbench.problems import PROBLEMS
 
     label = prep.case.problem_label or prep.problem.name
     schema = PROBLEMS.get(prep.case.problem.get("name"), (None,))[0]
@@ -132,8 +132,8 @@ def problem_key(prep: "Prepared") -> str:
 
 def prepare(case: Case, results_dir: str | Path = "results") -> Prepared:
     """Validate everything up front (ConfigError on bad input) and locate the record file."""
-    from bench.problems import make_problem
-    from solvers.base import Budget
+    from lapbench.problems import make_problem
+    from lapbench.solvers.base import Budget
 
     b = build_params(BudgetConfig, case.budget, prefix="budget")
     budget = Budget(time_limit=b.time_limit, train_time=b.train_time, memory_limit_mb=b.memory_limit_mb)
@@ -234,8 +234,8 @@ def _in_child(prep: Prepared, threads: int) -> dict:
     """Run the solver and measure it; returns the child part of the record (never raises)."""
     import random
 
-    from bench.metrics import BadSolution, error_field, measure, monitor_fn
-    from solvers.base import Diverged, RunContext, Solution, Unsupported
+    from lapbench.metrics import BadSolution, error_field, measure, monitor_fn
+    from lapbench.solvers.base import Diverged, RunContext, Solution, Unsupported
 
     out: dict = {"status": "ok", "reason": ""}
     random.seed(prep.case.seed)
@@ -274,7 +274,7 @@ def _in_child(prep: Prepared, threads: int) -> dict:
             result = prep.solver.solve(public, prep.budget, ctx)
             if not isinstance(result, Solution):  # plug-ins need not inherit Solver.solve's check
                 raise BadSolution(f"solver {prep.solver.name} returned {type(result).__name__}, "
-                                  f"expected solvers.base.Solution")
+                                  f"expected lapbench.solvers.base.Solution")
             solution = result
             if prep.solver.tags.deterministic and not ctx.history:
                 solution, runs = _repeat(prep, public, ctx, solution)
@@ -315,7 +315,7 @@ def _in_child(prep: Prepared, threads: int) -> dict:
 
 def _repeat(prep: Prepared, public, first_ctx, first):
     """Warm-up and repeats of a deterministic solve (TimingConfig); (last solution, runs' phases)."""
-    from solvers.base import RunContext
+    from lapbench.solvers.base import RunContext
 
     cfg = prep.timing
     start = time.perf_counter()
@@ -373,7 +373,7 @@ def _jsonable(info: dict) -> dict:
 
 # -- the parent -----------------------------------------------------------------------------------
 def _fork_and_wait(prep: Prepared, threads: int) -> dict:
-    """The case in a forked child (bench.isolate), within its time and memory limits."""
+    """The case in a forked child (lapbench.isolate), within its time and memory limits."""
     limit = prep.budget.time_limit
     out = run_isolated(lambda: _in_child(prep, threads), limit + KILL_GRACE, prep.budget.memory_limit_mb,
                        limit_text=f"the time limit of {limit:g} s")
@@ -404,7 +404,7 @@ def execute(prep: Prepared, force: bool = False, cores: int | None = None) -> tu
         if rec is not None:
             return rec, True
     threads, cores = effective_threads(prep.case.threads, cores)
-    from bench import calibration
+    from lapbench import calibration
 
     # computed references (eigen problems without closed form) are built here, in the parent and
     # before the clock starts, and cached under results_dir/cache: never on the solver's time

@@ -3,14 +3,14 @@ from __future__ import annotations
 
 import itertools
 
-from bench.config import ConfigError
+from lapbench.config import ConfigError
 
 __all__ = ["expand_suite", "override_string", "describe_suite", "TOLERANCE_KEY", "TOLERANCE_METRIC_KEY",
            "split_tolerance"]
 
 # Solve-to-tolerance grids: ``tolerances: [1e-3, 1e-6]`` (and optionally ``tolerance_metric: rel_l2``)
-# make each case of the grid one search per tolerance (bench.tolerance); the resolution knob may be
-# written ``solver.<knob>: auto``. Their cases carry these reserved keys, which bench.compose
+# make each case of the grid one search per tolerance (lapbench.tolerance); the resolution knob may be
+# written ``solver.<knob>: auto``. Their cases carry these reserved keys, which lapbench.compose
 # removes before composing (`split_tolerance`).
 TOLERANCE_KEY = "tolerance"
 TOLERANCE_METRIC_KEY = "tolerance_metric"

@@ -1,9 +1,9 @@
 """Running many cases: the sequential driver, the one-line case report and the progress bar.
 
 A sequential run or suite (Hydra's basic launcher) is run here, from the preloaded parent, case
-after case: composition and validation happened once for all cases (bench.compose.plan_run), so
+after case: composition and validation happened once for all cases (lapbench.compose.plan_run), so
 an extra case costs its own fork and record write, not a Hydra job. Parallel and cluster
-launchers still run one Hydra job per case (bench.cli.job), printing the same lines.
+launchers still run one Hydra job per case (lapbench.cli.job), printing the same lines.
 """
 from __future__ import annotations
 
@@ -82,8 +82,8 @@ class Progress:
 
 
 def _to_tolerance(prep, opts, progress: Progress, n: int, total: int) -> list[dict]:
-    """A suite's solve-to-tolerance case (bench.tolerance): one line per probe, then the outcome."""
-    from bench.tolerance import solve_to_tolerance
+    """A suite's solve-to-tolerance case (lapbench.tolerance): one line per probe, then the outcome."""
+    from lapbench.tolerance import solve_to_tolerance
 
     spec = prep.tolerance
     records: list[dict] = []
@@ -115,7 +115,7 @@ def run_sequential(cases, progress: Progress | None = None, start: int = 0) -> l
     case is a record, never an exception); an interrupt kills the running case and propagates,
     with the finished records already on disk.
     """
-    from bench.run import execute
+    from lapbench.run import execute
 
     import os
 

@@ -6,8 +6,8 @@ polynomial degree ``n`` for Chebyshev collocation, the mesh ``level`` for finite
 refinement ``refine`` for pixel grids. The search, for one case and one tolerance:
 
 1. *Growing.* A geometric knob starts at `Knob.start` and doubles; a linear knob (mesh levels,
-   each one halving h) steps by one. Each probe is an ordinary case (`bench.run.prepare` +
-   `bench.run.execute`): isolated, timed like any other, recorded in the results folder, and
+   each one halving h) steps by one. Each probe is an ordinary case (`lapbench.run.prepare` +
+   `lapbench.run.execute`): isolated, timed like any other, recorded in the results folder, and
    skipped with its record when it exists (so an interrupted search resumes where it stopped).
 2. *Bisection.* Once a probe reaches the tolerance, a geometric knob is bisected on the integers
    between the last probe that did not reach it and the first that did, so the result is the
@@ -31,7 +31,7 @@ import math
 from pathlib import Path
 from typing import Callable
 
-from bench.config import ConfigError
+from lapbench.config import ConfigError
 
 __all__ = ["Knob", "KNOBS", "Probe", "ToleranceResult", "knob_for", "solve_to_tolerance", "metric_for",
            "SOLUTION_METRICS", "EIGEN_METRICS", "FLOOR_GAIN", "AUTO"]
@@ -95,14 +95,14 @@ KNOBS: dict[str, Knob] = {
 
 def knob_for(solver_cfg: dict) -> Knob:
     """The resolution knob of a solver config: a plug-in class's ``resolution_knob``, else `KNOBS`."""
-    from bench.run import make_solver
+    from lapbench.run import make_solver
 
     solver = make_solver({k: v for k, v in solver_cfg.items() if not _is_auto(v)})   # `auto`: the default stands in
     knob = getattr(type(solver), "resolution_knob", None) or KNOBS.get(solver.name)
     if knob is None:
         raise ConfigError(f"`solver` {solver.name} has no declared resolution knob, so it cannot be solved to a "
                           f"tolerance; solvers with one: {', '.join(sorted(KNOBS))} (plug-ins: a class "
-                          f"attribute `resolution_knob = bench.tolerance.Knob(...)`)")
+                          f"attribute `resolution_knob = lapbench.tolerance.Knob(...)`)")
     return knob
 
 
@@ -189,7 +189,7 @@ def solve_to_tolerance(case, tolerance: float, metric: str | None = None, result
 
     Parameters
     ----------
-    case : bench.run.Case
+    case : lapbench.run.Case
         The case to search; its solver config's knob value is replaced by each probe's (an
         ``auto`` value is fine).
     tolerance : float
@@ -210,7 +210,7 @@ def solve_to_tolerance(case, tolerance: float, metric: str | None = None, result
     -------
     ToleranceResult
     """
-    from bench.run import execute, prepare
+    from lapbench.run import execute, prepare
 
     if not (isinstance(tolerance, (int, float)) and math.isfinite(tolerance) and tolerance > 0):
         raise ConfigError(f"`tolerance` must be a positive number, got {tolerance!r}")

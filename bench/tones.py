@@ -30,7 +30,7 @@ import dataclasses
 import math
 import sys
 
-from bench.config import ConfigError, build_params, positive
+from lapbench.config import ConfigError, build_params, positive
 
 __all__ = ["ToneOptions", "wave_speed", "tone_table", "record_tones", "torus_table", "cmd_tones"]
 
@@ -143,8 +143,8 @@ def torus_table(spectra, speed: float):
 
 
 def _cmd_tori(opts: ToneOptions, c: float) -> int:
-    from bench.lattice import load_torus, shortest_vectors_index, torus_spectrum
-    from bench.report import to_markdown
+    from lapbench.lattice import load_torus, shortest_vectors_index, torus_spectrum
+    from lapbench.report import to_markdown
 
     tori = [load_torus(t.strip()) for t in opts.torus.split(",") if t.strip()]
     if not tori:
@@ -171,8 +171,8 @@ def _cmd_tori(opts: ToneOptions, c: float) -> int:
 
 def cmd_tones(argv: list[str]) -> int:
     """`lapbench tones speed=C | tension=T density=RHO [results_dir=..] [problem=..] [solver=..]`."""
-    from bench.records import load_records
-    from bench.report import to_markdown
+    from lapbench.records import load_records
+    from lapbench.report import to_markdown
 
     values = {}
     for a in argv:

@@ -1,15 +1,15 @@
 """Solvers: one module per method family, all registered in SOLVERS (key = conf/solver/<key>.yaml)."""
-from solvers.base import Budget, Diverged, RunContext, Solution, Solver, Tags, Unsupported
-from solvers.fast_poisson import FST5, FST9
-from solvers.disk_spectral import DiskChebyshev
-from solvers.fd import FD5, FD9
-from solvers.fem import FEMP1, FEMP2
-from solvers.pixel import Pixel5
-from solvers.pinn import PINNFourier, PINNHard, PINNRar, PINNRitz, PINNSoft
-from solvers.pinn.eigen import PINNEigen
-from solvers.spectral import Chebyshev
-from solvers.sparse_grid import SparseGridCT
-from solvers.walk_on_spheres import WalkOnSpheres
+from lapbench.solvers.base import Budget, Diverged, RunContext, Solution, Solver, Tags, Unsupported
+from lapbench.solvers.fast_poisson import FST5, FST9
+from lapbench.solvers.disk_spectral import DiskChebyshev
+from lapbench.solvers.fd import FD5, FD9
+from lapbench.solvers.fem import FEMP1, FEMP2
+from lapbench.solvers.pixel import Pixel5
+from lapbench.solvers.pinn import PINNFourier, PINNHard, PINNRar, PINNRitz, PINNSoft
+from lapbench.solvers.pinn.eigen import PINNEigen
+from lapbench.solvers.spectral import Chebyshev
+from lapbench.solvers.sparse_grid import SparseGridCT
+from lapbench.solvers.walk_on_spheres import WalkOnSpheres
 
 # The one registry: name -> class. Later families add their entries here.
 SOLVERS: dict[str, type[Solver]] = {
@@ -38,7 +38,7 @@ __all__ = ["SOLVERS", "Solver", "Solution", "Budget", "RunContext", "Tags", "Uns
 
 def get_solver(name: str) -> type[Solver]:
     """The registered solver class `name`, or a ConfigError listing the valid names."""
-    from bench.config import ConfigError
+    from lapbench.config import ConfigError
 
     if name not in SOLVERS:
         raise ConfigError(f"`solver.name` must be one of {', '.join(sorted(SOLVERS))}; got {name!r}")

@@ -167,7 +167,7 @@ class Solver:
         pass
 
     def __init__(self, params: Any = None, **kwargs):
-        from bench.config import build_params
+        from lapbench.config import build_params
 
         if params is None or isinstance(params, dict):
             params = build_params(self.Params, {**(params or {}), **kwargs}, prefix="solver")
@@ -225,5 +225,5 @@ class Solver:
 
     def _solve(self, problem, budget: Budget, ctx: RunContext) -> Solution:  # pragma: no cover
         # Deliberate: the one private hook every family overrides (rule 2 of the module
-        # docstring); plug-ins without it are refused at load time by bench.plugins.
+        # docstring); plug-ins without it are refused at load time by lapbench.plugins.
         raise NotImplementedError(f"{type(self).__name__} must implement _solve")

@@ -1,7 +1,7 @@
 """Spectral collocation on the disk: Chebyshev in radius x Fourier in angle, mode by mode.
 
 Eigenproblems (`disk_eigen`) solve one radial eigenproblem per Fourier wavenumber and keep the
-eigenvalues that pass the drift test of `solvers.eigen`.
+eigenvalues that pass the drift test of `lapbench.solvers.eigen`.
 """
 from __future__ import annotations
 
@@ -9,10 +9,10 @@ import dataclasses
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from solvers.base import Solution, Solver, Tags
-from solvers.eigen import DRIFT_TOL, drift_accept, eigen_solution
-from solvers.spectral import barycentric_matrix, cheb
+from lapbench.config import ConfigError, positive
+from lapbench.solvers.base import Solution, Solver, Tags
+from lapbench.solvers.eigen import DRIFT_TOL, drift_accept, eigen_solution
+from lapbench.solvers.spectral import barycentric_matrix, cheb
 
 __all__ = ["DiskChebyshev", "disk_eigen"]
 

@@ -3,9 +3,9 @@
 Each classical family owns its eigen path, next to the discrete operator it already uses for
 Poisson problems, and calls it when ``problem.kind == "eigen"``:
 
-- fd5/fd9 on rectangles: `solvers.fd.grid_eigen`; fd5 elsewhere: `solvers.masked.masked_eigen`
-- fem_p1/fem_p2: `solvers.fem.fem_eigen` and `fem_eigen_solution`
-- cheb: `solvers.spectral.cheb_eigen`; disk_cheb: `solvers.disk_spectral.disk_eigen`
+- fd5/fd9 on rectangles: `lapbench.solvers.fd.grid_eigen`; fd5 elsewhere: `lapbench.solvers.masked.masked_eigen`
+- fem_p1/fem_p2: `lapbench.solvers.fem.fem_eigen` and `fem_eigen_solution`
+- cheb: `lapbench.solvers.spectral.cheb_eigen`; disk_cheb: `lapbench.solvers.disk_spectral.disk_eigen`
 
 This module holds what they share and imports no family module (imports run families -> eigen
 -> base). Every path returns a `Solution` built by `eigen_solution`, with ascending
@@ -19,7 +19,7 @@ Shared methods (each with its source):
 - sparse matrices (finite differences, finite elements): the generalised symmetric problem
   ``A x = lambda B x`` by ARPACK's implicitly restarted Lanczos method in shift-invert mode about
   sigma = 0 (Lehoucq, Sorensen & Yang, ARPACK Users' Guide, SIAM 1998, sec. 3.2), with the
-  factorisation of A done by SuperLU with the minimum-degree ordering that `solvers.linalg` uses
+  factorisation of A done by SuperLU with the minimum-degree ordering that `lapbench.solvers.linalg` uses
   (`eigsh_lowest`).
 - collocation matrices (Chebyshev on rectangles and on the disk): inaccurate or spurious
   eigenvalues are filtered by the drift test between two resolutions (J. P. Boyd, Chebyshev and
@@ -31,7 +31,7 @@ import numpy as np
 import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 
-from solvers.base import Solution
+from lapbench.solvers.base import Solution
 
 __all__ = ["eigsh_lowest", "shift_invert", "eigen_solution", "field_modes", "sign_fix", "drift_accept",
            "DRIFT_TOL"]
@@ -69,7 +69,7 @@ def eigsh_lowest(A: sps.spmatrix, k: int, B: sps.spmatrix | None = None,
 
     Shift-invert Lanczos about sigma = 0: the operator A^-1 B has the wanted eigenvalues as its
     largest ones, so ARPACK converges in few iterations. Eigenvectors are B-orthonormal.
-    `permc_spec` is SuperLU's fill-reducing ordering (see `solvers.fem.fem_eigen` for why it
+    `permc_spec` is SuperLU's fill-reducing ordering (see `lapbench.solvers.fem.fem_eigen` for why it
     differs there).
     """
     N = A.shape[0]

@@ -3,7 +3,7 @@
 On a rectangle the 2-D schemes below; on a d-dimensional box (`box_solve`) their d-dimensional
 forms, with any number of intervals per axis (anisotropic grids, as the sparse-grid combination
 technique needs): the (2d + 1)-point operator -sum_i D_i (order 2) and the compact 3^d-point
-operator -sum_i D_i prod_{j != i} (1 + h_j^2 D_j / 12) (order 4; `solvers.grid.box_operator`),
+operator -sum_i D_i prod_{j != i} (1 + h_j^2 D_j / 12) (order 4; `lapbench.solvers.grid.box_operator`),
 both diagonal in the tensor-product sine basis, so one dstn, one division and one idstn solve
 them.
 """
@@ -14,10 +14,10 @@ import scipy.fft
 
 import dataclasses
 
-from bench.config import ConfigError, positive
-from solvers.base import Tags
-from solvers.fd import MAX_GRID_N, _SparseFD, grid_solution
-from solvers.grid import (MAX_GRID_DIM, TensorGrid, box_axes, box_rhs, box_solution, default_n,
+from lapbench.config import ConfigError, positive
+from lapbench.solvers.base import Tags
+from lapbench.solvers.fd import MAX_GRID_N, _SparseFD, grid_solution
+from lapbench.solvers.grid import (MAX_GRID_DIM, TensorGrid, box_axes, box_rhs, box_solution, default_n,
                           discrete_rhs, refuse_memory)
 
 __all__ = ["FST5", "FST9", "dirichlet_eigenvalues", "box_eigenvalues", "box_solve",
@@ -113,7 +113,7 @@ def divide_by_eigenvalues(what: np.ndarray, ns, hs, compact: bool) -> np.ndarray
 def box_solve(bounds, ns, f, g, compact: bool, ctx=None) -> tuple[list[np.ndarray], np.ndarray]:
     """Solve -Laplace(u) = f, u = g on the box `bounds` (d, 2) with ``ns[i]`` intervals on axis i.
 
-    f, g are callables of points (m, d) (a `bench.fields.Field` is evaluated on the grid by
+    f, g are callables of points (m, d) (a `lapbench.fields.Field` is evaluated on the grid by
     broadcasting; g only at boundary nodes); either may be None (zero). Returns the node axes
     and the full grid of nodal values (boundary included). `ctx` (a RunContext) times the
     setup and solve phases when given.

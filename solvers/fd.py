@@ -1,7 +1,7 @@
 """Finite differences on tensor grids: the 5-point scheme and the compact 9-point scheme.
 
 Eigenproblems on rectangles (`grid_eigen`) use the same matrices, by the shared shift-invert
-Lanczos of `solvers.eigen`; fd5 on other domains goes to `solvers.masked`. fd5 on d-boxes,
+Lanczos of `lapbench.solvers.eigen`; fd5 on other domains goes to `lapbench.solvers.masked`. fd5 on d-boxes,
 d <= 4 (`box_matrix`): the (2d + 1)-point operator as a sparse Kronecker sum, sparse direct or
 AMG-CG.
 """
@@ -12,12 +12,12 @@ import dataclasses
 import numpy as np
 import scipy.sparse as sps
 
-from bench.config import ConfigError, one_of, positive
-from solvers.base import Solution, Solver, Tags
-from solvers.eigen import eigen_solution, eigsh_lowest, field_modes
-from solvers.grid import (LocalLagrange, TensorGrid, box_axes, box_rhs, box_solution, default_n,
+from lapbench.config import ConfigError, one_of, positive
+from lapbench.solvers.base import Solution, Solver, Tags
+from lapbench.solvers.eigen import eigen_solution, eigsh_lowest, field_modes
+from lapbench.solvers.grid import (LocalLagrange, TensorGrid, box_axes, box_rhs, box_solution, default_n,
                           discrete_rhs, interior_matrix, refuse_memory, second_difference)
-from solvers.linalg import LINEAR_SOLVERS, solve_spd
+from lapbench.solvers.linalg import LINEAR_SOLVERS, solve_spd
 
 __all__ = ["FD5", "FD9", "MAX_GRID_N", "grid_eigen", "box_matrix", "FD_BOX_DIMS"]
 
@@ -51,9 +51,9 @@ class FDParams:
 
 class _SparseFD(Solver):
     family = "fd"
-    # AMG (linalg, masked), dense tiny eigenproblems (scipy.linalg in solvers.eigen), Shortley-Weller
+    # AMG (linalg, masked), dense tiny eigenproblems (scipy.linalg in lapbench.solvers.eigen), Shortley-Weller
     # grids and their interpolant (masked, scipy.spatial)
-    preload_modules = ("pyamg", "scipy.linalg", "scipy.spatial", "solvers.masked")
+    preload_modules = ("pyamg", "scipy.linalg", "scipy.spatial", "lapbench.solvers.masked")
     compact = False
     Params = FDParams
     tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=frozenset({"rectangle"}))
@@ -180,12 +180,12 @@ class FD5(_SparseFD):
         if problem.domain.kind == "box":
             return self._solve_box(problem, budget, ctx)
         if problem.domain.kind != "rectangle" and problem.kind == "eigen":
-            from solvers.masked import masked_eigen  # the same masked operator, eigenpairs
+            from lapbench.solvers.masked import masked_eigen  # the same masked operator, eigenpairs
 
             with ctx.phase("solve"):
                 return masked_eigen(problem, self.params.n, problem.n_eigs, {})
         if problem.domain.kind != "rectangle":
-            from solvers.masked import masked_fd5
+            from lapbench.solvers.masked import masked_fd5
 
             return masked_fd5(problem, self.params, ctx)
         return super()._solve(problem, budget, ctx)

@@ -2,13 +2,13 @@
 
 Meshes: pixel masks start from their pixels split into two triangles each; polygons (and
 rectangles) start from the ear-clipped, Lawson-flipped coarse
-triangulation of `bench.domains.polygon` and are refined uniformly (``level`` times), so meshes of
+triangulation of `lapbench.domains.polygon` and are refined uniformly (``level`` times), so meshes of
 successive levels are nested. Disks start from scikit-fem's four-triangle disk and move new
 boundary nodes onto the circle after each refinement; annuli use a polar mesh with nodes on both
 circles. For P2 on curved boundaries the mesh is quadratic (isoparametric): edge midpoints on
 the boundary lie on the circle, so the geometry error O(h^3) does not spoil the order.
-Eigenproblems (`fem_eigen`, also the computed references of `bench.problems.reference`) assemble
-stiffness and mass on the same meshes and use the shared shift-invert Lanczos of `solvers.eigen`.
+Eigenproblems (`fem_eigen`, also the computed references of `lapbench.problems.reference`) assemble
+stiffness and mass on the same meshes and use the shared shift-invert Lanczos of `lapbench.solvers.eigen`.
 """
 from __future__ import annotations
 
@@ -18,10 +18,10 @@ import math
 
 import numpy as np
 
-from bench.config import ConfigError, one_of, positive
-from solvers.base import Solution, Solver, Tags
-from solvers.eigen import eigen_solution, eigsh_lowest, field_modes
-from solvers.linalg import LINEAR_SOLVERS, solve_spd
+from lapbench.config import ConfigError, one_of, positive
+from lapbench.solvers.base import Solution, Solver, Tags
+from lapbench.solvers.eigen import eigen_solution, eigsh_lowest, field_modes
+from lapbench.solvers.linalg import LINEAR_SOLVERS, solve_spd
 
 __all__ = ["FEMP1", "FEMP2", "build_mesh", "FEMFunction", "fem_eigen", "fem_eigen_solution", "MAX_LEVEL"]
 
@@ -54,7 +54,7 @@ class FEMParams:
 
 def _coarse(domain):
     """Coarse P1 mesh (p (2, N), t (3, T)) and its largest edge, per domain kind."""
-    from bench.domains import Annulus, Disk, Polygon
+    from lapbench.domains import Annulus, Disk, Polygon
 
     if domain.kind == "rectangle":
         x0, x1, y0, y1 = domain.bbox
@@ -343,7 +343,7 @@ class _FEM(Solver):
     Params = FEMParams
     tags = Tags(kinds=frozenset({"laplace", "poisson", "eigen"}), domains=FEM_DOMAINS)
 
-    # skfem and pyamg cost about 0.5 s to import; tiny eigenproblems use scipy.linalg (solvers.eigen)
+    # skfem and pyamg cost about 0.5 s to import; tiny eigenproblems use scipy.linalg (lapbench.solvers.eigen)
     preload_modules = ("pyamg", "skfem", "skfem.helpers", "scipy.linalg")
 
     def effective_level(self, domain) -> int:

@@ -195,7 +195,7 @@ def box_boundary_values(axes: list[np.ndarray], g) -> np.ndarray:
     g is evaluated at boundary nodes only, each exactly once: the face normal to axis i takes
     the interior nodes of the axes before i and all nodes of the axes after it.
     """
-    from bench.fields import on_grid
+    from lapbench.fields import on_grid
 
     shape = tuple(len(a) for a in axes)
     U = np.zeros(shape)
@@ -279,7 +279,7 @@ def box_rhs(axes: list[np.ndarray], f, g, compact: bool) -> tuple[np.ndarray, np
     that makes the compact operator fourth order (in 2-D the Mehrstellen right-hand side of
     `discrete_rhs`); it uses f on the boundary nodes too.
     """
-    from bench.fields import on_grid
+    from lapbench.fields import on_grid
 
     hs = [a[1] - a[0] for a in axes]
     d = len(axes)
@@ -399,7 +399,7 @@ def box_nodes(axes: list[np.ndarray], U: np.ndarray) -> tuple[np.ndarray | None,
 def box_solution(axes: list[np.ndarray], U: np.ndarray, degree: int, info: dict):
     """Solution on a uniform d-box grid: `TensorLagrange` interpolant of degree `degree` and the
     nodal set of `box_nodes`."""
-    from solvers.base import Solution
+    from lapbench.solvers.base import Solution
 
     nodes, values = box_nodes(axes, U)
     return Solution(evaluate=TensorLagrange(axes, U, degree), nodes=nodes, values=values,

@@ -20,8 +20,8 @@ import numpy as np
 import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 
-from solvers.base import Solution
-from solvers.eigen import eigen_solution, eigsh_lowest, field_modes, shift_invert, sign_fix
+from lapbench.solvers.base import Solution
+from lapbench.solvers.eigen import eigen_solution, eigsh_lowest, field_modes, shift_invert, sign_fix
 
 __all__ = ["masked_fd5", "masked_eigen", "MaskedGrid", "MaskedInterpolant", "solve_general"]
 

@@ -1,4 +1,4 @@
-"""The 5-point scheme at pixel resolution on pixel-mask regions (`bench.domains.Mask`).
+"""The 5-point scheme at pixel resolution on pixel-mask regions (`lapbench.domains.Mask`).
 
 Grid nodes are the pixel corners, refined `refine` times per pixel side (spacing h = pixel /
 refine). A node whose four fine pixels are all in the region is an unknown; a node touching
@@ -11,7 +11,7 @@ Difference Methods, SIAM 2007, ch. 3]. At ``refine = 1`` on an image whose pixel
 the nodes this is the discrete harmonic fill of image processing (Perez, Gangnet & Blake,
 "Poisson image editing", SIGGRAPH 2003, eq. 7).
 
-Linear solvers (measured in `bench.perf.pixel_scaling`):
+Linear solvers (measured in `lapbench.perf.pixel_scaling`):
 ``direct``  SuperLU, symmetric mode, minimum-degree ordering of A^T + A (a fill-reducing order);
 ``amg``     CG preconditioned by classical algebraic multigrid (pyamg's Ruge-Stueben solver;
             Ruge & Stueben, "Algebraic multigrid", in Multigrid Methods, SIAM 1987);
@@ -28,8 +28,8 @@ import numpy as np
 import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 
-from bench.config import ConfigError, one_of, positive
-from solvers.base import Solution, Solver, Tags
+from lapbench.config import ConfigError, one_of, positive
+from lapbench.solvers.base import Solution, Solver, Tags
 
 __all__ = ["Pixel5", "PixelGrid", "PixelInterpolant", "pixel_solve", "PIXEL_SOLVERS", "five_point"]
 

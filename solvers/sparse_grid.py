@@ -6,7 +6,7 @@ Griebel, "Sparse grids", Acta Numerica 13, 2004, sec. 4.4) solves the Poisson pr
 anisotropic full grids with 2^{l_i} intervals on axis i, l_i >= 1, for every level vector l with
 |l|_1 = L + (d - 1) - q, q = 0 .. d - 1, and adds their multilinear interpolants with the
 coefficients (-1)^q binom(d - 1, q). Each component is the (2d + 1)-point system solved by the
-tensor DST-I (`solvers.fast_poisson.box_solve`), so a level-L solve costs O(2^L L^(d-1))
+tensor DST-I (`lapbench.solvers.fast_poisson.box_solve`), so a level-L solve costs O(2^L L^(d-1))
 unknowns in all instead of the 2^(L d) of the full grid at the same finest spacing h = 2^-L. For
 smooth solutions with bounded mixed derivatives the error is O(h^2 log(1/h)^(d-1))
 (Bungartz & Griebel 2004, sec. 3 and 4.4; the error splitting of the 5-point solution that
@@ -24,10 +24,10 @@ from math import comb
 
 import numpy as np
 
-from bench.config import positive
-from solvers.base import Solution, Solver, Tags
-from solvers.fast_poisson import box_solve
-from solvers.grid import DEFAULT_UNKNOWNS, MAX_GRID_DIM, TensorLagrange, refuse_memory
+from lapbench.config import positive
+from lapbench.solvers.base import Solution, Solver, Tags
+from lapbench.solvers.fast_poisson import box_solve
+from lapbench.solvers.grid import DEFAULT_UNKNOWNS, MAX_GRID_DIM, TensorLagrange, refuse_memory
 
 __all__ = ["SparseGridCT", "combination_levels", "combination_solve", "combine", "grid_count", "default_level",
            "MAX_LEVEL", "MAX_GRIDS"]

@@ -7,7 +7,7 @@ P_i (O(d n^(d+1)) work, (n+1)^d storage); `evaluate` contracts the nodal tensor 
 barycentric rows axis by axis.
 
 Eigenproblems (`cheb_eigen`) diagonalise the same 1-D second-derivative matrices and keep the
-eigenvalues that pass the drift test of `solvers.eigen`.
+eigenvalues that pass the drift test of `lapbench.solvers.eigen`.
 """
 from __future__ import annotations
 
@@ -15,10 +15,10 @@ import dataclasses
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from solvers.base import Solution, Solver, Tags
-from solvers.eigen import DRIFT_TOL, drift_accept, eigen_solution
-from solvers.grid import MAX_GRID_DIM, box_boundary_values, box_nodes, default_n, refuse_memory
+from lapbench.config import ConfigError, positive
+from lapbench.solvers.base import Solution, Solver, Tags
+from lapbench.solvers.eigen import DRIFT_TOL, drift_accept, eigen_solution
+from lapbench.solvers.grid import MAX_GRID_DIM, box_boundary_values, box_nodes, default_n, refuse_memory
 
 __all__ = ["Chebyshev", "cheb", "barycentric_matrix", "cheb_eigen", "cheb_box_solve", "TensorBarycentric"]
 
@@ -93,7 +93,7 @@ def cheb_eigen(domain, n: int, k: int, info: dict) -> Solution:
     (reported) and n (check); those failing the drift test are dropped, and only 2-D eigenvalues
     below the smallest sum involving a dropped one are reported (so none is skipped). The
     Kronecker-sum spectrum is the eigenvalue form of the matrix diagonalisation of `Chebyshev`
-    (Haidvogel & Zang, JCP 30, 1979); the drift test is Boyd's (`solvers.eigen.drift_accept`).
+    (Haidvogel & Zang, JCP 30, 1979); the drift test is Boyd's (`lapbench.solvers.eigen.drift_accept`).
     """
     a, b = domain.lengths
     nf = n + max(2, n // 2)
@@ -194,7 +194,7 @@ def cheb_box_solve(bounds, ns, f, g, ctx=None) -> tuple[list[np.ndarray], np.nda
     """
     import contextlib
 
-    from bench.fields import on_grid
+    from lapbench.fields import on_grid
 
     phase = ctx.phase if ctx is not None else (lambda name: contextlib.nullcontext())
     d = len(ns)

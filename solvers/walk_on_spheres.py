@@ -35,7 +35,7 @@ Where the harness's error comes from (a pointwise method has no interpolant): th
 walks from every point of the case's own evaluation set (``problem.eval_set(seed=ctx.seed)``,
 geometry only: the quadrature/QMC points plus the extra points of the max error), so the errors
 the harness measures are those of values the timed solve computed, and the recorded time is the
-time for that many points: about 3.5e4 points for d >= 3 (`bench.domains.base.sobol_eval_set`),
+time for that many points: about 3.5e4 points for d >= 3 (`lapbench.domains.base.sobol_eval_set`),
 cost proportional to points x walks x steps. Other points given to ``evaluate`` get fresh walks
 (untimed by the solve). ``info["stat_error_rel"]`` predicts the relative L2 error from the
 statistical error alone.
@@ -48,8 +48,8 @@ import math
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from solvers.base import Solution, Solver, Tags
+from lapbench.config import ConfigError, positive
+from lapbench.solvers.base import Solution, Solver, Tags
 
 __all__ = ["WalkOnSpheres", "WalkParams", "walk_on_spheres", "sample_green_radius", "MAX_WALKERS"]
 

@@ -15,8 +15,8 @@ import time
 
 import numpy as np
 
-from solvers.base import Diverged, Solver
-from solvers.fd import FD5, FDParams
+from lapbench.solvers.base import Diverged, Solver
+from lapbench.solvers.fd import FD5, FDParams
 
 
 @dataclasses.dataclass
@@ -147,7 +147,7 @@ class CostSolver(Solver):
     Params = CostParams
 
     def _solve(self, problem, budget, ctx):
-        from solvers.base import Solution
+        from lapbench.solvers.base import Solution
 
         with ctx.phase("solve"):
             wait = self.params.n / 1e3

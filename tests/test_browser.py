@@ -22,8 +22,8 @@ from pathlib import Path
 
 import pytest
 
-from bench.config import build_params
-from bench.report import ReportConfig, write_report
+from lapbench.config import build_params
+from lapbench.report import ReportConfig, write_report
 from tests.test_report import classical_ladder, field_of, make_record, pinn_seeds, write_all
 
 CHROMIUM = shutil.which("chromium") or "/usr/bin/chromium"

@@ -17,12 +17,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from bench.check import CheckConfig, compare, dumps_baseline, read_baseline, summarise
-from bench.config import ConfigError
-from bench.records import case_key, iter_records, resolution_label, write_record
-from bench.run import Case, execute, prepare
-from solvers.base import Solution
-from solvers.fast_poisson import FST9
+from lapbench.check import CheckConfig, compare, dumps_baseline, read_baseline, summarise
+from lapbench.config import ConfigError
+from lapbench.records import case_key, iter_records, resolution_label, write_record
+from lapbench.run import Case, execute, prepare
+from lapbench.solvers.base import Solution
+from lapbench.solvers.fast_poisson import FST9
 from tests.conftest import LAPBENCH, ROOT
 
 SUITES = {
@@ -355,7 +355,7 @@ def test_missing_baseline_and_bad_options_exit_2(world, tmp_path):
 
 # -- stochastic solvers: medians over seeds, failure counts (synthetic records, in process) -------------------
 def fake(seed, rel_l2, status="ok", solver="toy", deterministic=False, time=1.0, family="test"):
-    """A minimal record as bench.run writes it (the fields the baseline reads)."""
+    """A minimal record as lapbench.run writes it (the fields the baseline reads)."""
     return {"problem": {"id": "sine(k=1,l=1)", "label": "sine"}, "seed": seed, "status": status,
             "reason": "" if status == "ok" else "injected",
             "solver": {"name": solver, "config": {"name": solver, "n": 8}, "resolution": {"n": 8},
@@ -444,9 +444,9 @@ def test_times_measured_on_a_busy_machine_are_not_compared():
 
 
 def test_case_key_is_the_records_identity_and_groups_drop_only_the_seed():
-    from bench import check
+    from lapbench import check
 
-    assert check.case_key is case_key        # one definition, in bench.records
+    assert check.case_key is case_key        # one definition, in lapbench.records
     # the key format stated in bench/check/baseline.py's docstring, with its example
     assert case_key("peak(alpha=1000.0,xc=0.5,yc=0.5)", "fd5", "n=64", "linear_solver=amg", 0) == \
         "peak(alpha=1000.0,xc=0.5,yc=0.5) fd5[linear_solver=amg] n=64 seed=0"

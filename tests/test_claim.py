@@ -9,12 +9,12 @@ from pathlib import Path
 
 import pytest
 
-from bench.claim import CITATION, Claim, claim_check, classical_solvers
-from bench.config import ConfigError
-from bench.problems import make_problem
+from lapbench.claim import CITATION, Claim, claim_check, classical_solvers
+from lapbench.config import ConfigError
+from lapbench.problems import make_problem
 
 ROOT = Path(__file__).resolve().parents[1]
-LAPBENCH = [sys.executable, "-c", "from bench.cli import main; main()"]
+LAPBENCH = [sys.executable, "-c", "from lapbench.cli import main; main()"]
 
 
 def test_claim_on_sine_finds_a_fast_classical_method(tmp_path):

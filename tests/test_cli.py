@@ -120,7 +120,7 @@ def test_conf_found_when_installed_non_editable(tmp_path):
     target = tmp_path / "site"
     subprocess.run([sys.executable, "-m", "pip", "install", "-q", "--no-deps", "--no-build-isolation",
                     "--target", str(target), str(ROOT)], check=True, capture_output=True, timeout=300)
-    code = "from bench.cli import conf_dir; d = conf_dir(); print(d); assert (d / 'config.yaml').is_file()"
+    code = "from lapbench.cli import conf_dir; d = conf_dir(); print(d); assert (d / 'config.yaml').is_file()"
     env = {**os.environ, "PYTHONPATH": str(target)}
     p = subprocess.run([sys.executable, "-c", code], cwd=tmp_path, env=env, capture_output=True, text=True)
     assert p.returncode == 0, p.stderr

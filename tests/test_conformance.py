@@ -7,8 +7,8 @@ from pathlib import Path
 
 import pytest
 
-from bench.conformance import CHECKS, NotApplicable, CheckFailure
-from solvers import SOLVERS
+from lapbench.conformance import CHECKS, NotApplicable, CheckFailure
+from lapbench.solvers import SOLVERS
 
 # The one table of tiny test budgets: solver -> params overriding its defaults (comment why).
 TEST_BUDGETS = {
@@ -66,7 +66,7 @@ def test_every_solver_registered_with_config():
     """Registry key = conf/solver/<key>.yaml = the record's solver name (STYLE.md rule 3)."""
     from omegaconf import OmegaConf
 
-    from bench.cli import conf_dir
+    from lapbench.cli import conf_dir
 
     for name, cls in SOLVERS.items():
         path = conf_dir() / "solver" / f"{name}.yaml"

@@ -10,12 +10,12 @@ import numpy as np
 import pytest
 from scipy.special import jn_zeros
 
-from bench.metrics import eigen_errors, eigenspace_angle
-from bench.problems.eigen import LSHAPE_LAMBDA1
-from bench.problems.reference import computed_reference
-from bench.problems import make_problem
-from solvers import SOLVERS
-from solvers.base import Budget, RunContext, Solution
+from lapbench.metrics import eigen_errors, eigenspace_angle
+from lapbench.problems.eigen import LSHAPE_LAMBDA1
+from lapbench.problems.reference import computed_reference
+from lapbench.problems import make_problem
+from lapbench.solvers import SOLVERS
+from lapbench.solvers.base import Budget, RunContext, Solution
 
 PI2 = math.pi ** 2
 
@@ -77,7 +77,7 @@ def test_public_view_strips_reference():
 
 
 def test_bad_k_is_one_line_config_error():
-    from bench.config import ConfigError
+    from lapbench.config import ConfigError
 
     with pytest.raises(ConfigError, match=r"^`problem.k` must be a positive integer, got 0$"):
         make_problem({"name": "eigen_rect", "k": 0})
@@ -238,7 +238,7 @@ def test_computed_reference_reproduces_published_lshape_value(tmp_path):
 
 
 def test_harness_records_eigen_case_and_computed_reference(tmp_path):
-    from bench.run import Case, run_case
+    from lapbench.run import Case, run_case
 
     rec, _ = run_case(Case(problem={"name": "eigen_polygon", "k": 2, "ref_triangles": 1024},
                            solver={"name": "fem_p2", "level": 3}, problem_label="eigen_polygon"),
@@ -300,9 +300,9 @@ def test_trace_objective_is_the_sum_of_ritz_values_and_refuses_dependent_modes()
     import scipy.linalg
     import torch
 
-    from solvers.base import Diverged
-    from solvers.pinn.model import Network
-    from solvers.pinn.eigen import _trace_objective
+    from lapbench.solvers.base import Diverged
+    from lapbench.solvers.pinn.model import Network
+    from lapbench.solvers.pinn.eigen import _trace_objective
 
     gen = torch.Generator().manual_seed(3)
     x = torch.rand(400, 2, dtype=torch.float64, generator=gen)
@@ -328,7 +328,7 @@ def test_trace_objective_is_the_sum_of_ritz_values_and_refuses_dependent_modes()
 
 # -- the frequencies view ---------------------------------------------------------------------------
 def test_tone_table_ratios():
-    from bench.tones import tone_table
+    from lapbench.tones import tone_table
 
     t = tone_table(np.array([2, 5, 5]) * PI2, speed=2 * math.pi)
     # f = c sqrt(lambda) / (2 pi) = sqrt(lambda) for c = 2 pi; ratio sqrt(5/2) [closed form]
@@ -337,7 +337,7 @@ def test_tone_table_ratios():
 
 
 def test_tones_cli(tmp_path, lapbench_cmd):
-    from bench.run import Case, run_case
+    from lapbench.run import Case, run_case
 
     run_case(Case(problem={"name": "eigen_rect", "k": 2}, solver={"name": "cheb", "n": 12},
                   problem_label="eigen_square"), results_dir=tmp_path)
@@ -355,8 +355,8 @@ def test_tones_cli(tmp_path, lapbench_cmd):
 
 
 def test_pinn_eigen_unknown_strategy_names_the_field():
-    from bench.config import ConfigError
-    from solvers import SOLVERS
+    from lapbench.config import ConfigError
+    from lapbench.solvers import SOLVERS
 
     with pytest.raises(ConfigError, match=r"strategy.*subspace, sequential"):
         SOLVERS["pinn_eigen"](params={"strategy": "greedy"})

@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from bench.expr import ExpressionError, Manufactured, X, Y, parse
+from lapbench.expr import ExpressionError, Manufactured, X, Y, parse
 
 
 @pytest.mark.parametrize("text,expected", [

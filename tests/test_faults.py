@@ -14,8 +14,8 @@ import time
 import psutil
 import pytest
 
-from bench.records import read_record
-from bench.run import Case, run_case
+from lapbench.records import read_record
+from lapbench.run import Case, run_case
 from tests.conftest import ROOT
 
 FAST = {"time_limit": 1.0, "memory_limit_mb": 150.0}
@@ -83,7 +83,7 @@ def test_one_huge_allocation_is_refused_not_swapped(tmp_path):
 
 def test_an_interrupted_harness_takes_its_case_down(tmp_path):
     """Ctrl-C (SIGINT to the harness only) ends the running case at once: no orphan keeps running."""
-    script = ("from bench.run import Case, run_case\n"
+    script = ("from lapbench.run import Case, run_case\n"
               "run_case(Case(problem={'name': 'sine'}, solver={'_target_': 'tests.fault_solvers.FaultHang'},"
               f" budget={{'time_limit': 120}}), {str(tmp_path)!r})\n")
     proc = subprocess.Popen([sys.executable, "-c", script], cwd=ROOT, stderr=subprocess.PIPE, text=True,

@@ -2,11 +2,11 @@
 import numpy as np
 import pytest
 
-from bench.config import ConfigError
-from bench.metrics import solution_errors
-from bench.problems import make_problem
-from solvers import SOLVERS
-from solvers.fem import FEMP1, FEMP2, build_mesh
+from lapbench.config import ConfigError
+from lapbench.metrics import solution_errors
+from lapbench.problems import make_problem
+from lapbench.solvers import SOLVERS
+from lapbench.solvers.fem import FEMP1, FEMP2, build_mesh
 
 
 def slope(h, e):
@@ -140,7 +140,7 @@ def test_bad_params_and_absurd_levels_are_refused(tmp_path):
         FEMP1(level=-1)
     with pytest.raises(ConfigError, match=r"^`solver\.linear_solver` must be one of direct, amg"):
         FEMP2(linear_solver="cg")
-    from bench.run import Case, prepare
+    from lapbench.run import Case, prepare
 
     with pytest.raises(ConfigError, match=r"^`solver` fem_p2 .* needs about .* memory"):
         prepare(Case(problem={"name": "lshape"}, solver={"name": "fem_p2", "level": 14}),

@@ -7,14 +7,14 @@ import numpy as np
 import pytest
 from omegaconf import OmegaConf
 
-from bench.config import ConfigError, conf_dir
-from bench.domains import Ball, Box, make_domain, unit_ball, unit_box
-from bench.fields import Field, on_grid
-from bench.metrics import error_field, measure
-from bench.numerics import fd_laplacian  # fourth-order central differences (common practice)
-from bench.problems import make_problem
-from bench.problems.highdim import ball_spectrum, bessel_zeros, box_spectrum, harmonic_multiplicity
-from solvers.base import Solution
+from lapbench.config import ConfigError, conf_dir
+from lapbench.domains import Ball, Box, make_domain, unit_ball, unit_box
+from lapbench.fields import Field, on_grid
+from lapbench.metrics import error_field, measure
+from lapbench.numerics import fd_laplacian  # fourth-order central differences (common practice)
+from lapbench.problems import make_problem
+from lapbench.problems.highdim import ball_spectrum, bessel_zeros, box_spectrum, harmonic_multiplicity
+from lapbench.solvers.base import Solution
 
 ND = ["nd_gauss", "nd_harmonic", "nd_pole", "nd_waves"]
 
@@ -66,7 +66,7 @@ def test_solutions_are_not_separable_products():
 
 
 def test_harmonic_directions_and_pole_position():
-    from bench.problems.highdim import orthonormal_pair
+    from lapbench.problems.highdim import orthonormal_pair
 
     a, b = orthonormal_pair(9, draw=3)
     assert abs(a @ b) < 1e-14 and abs(a @ a - 1) < 1e-14 and abs(b @ b - 1) < 1e-14
@@ -165,7 +165,7 @@ def test_boundary_extension_exact_on_boundary_and_not_harmonic(dom):
 
 
 def test_two_dimensional_box_and_ball_reuse_the_planar_rules():
-    from bench.domains import Disk, Rectangle
+    from lapbench.domains import Disk, Rectangle
 
     assert np.array_equal(Box(lo=(0, 0), hi=(1, 2)).quadrature(8)[0], Rectangle(0, 1, 0, 2).quadrature(8)[0])
     assert np.array_equal(Ball(center=(0, 0), radius=1).quadrature(8)[1], Disk().quadrature(8)[1])
@@ -294,7 +294,7 @@ def test_ball_spectrum_three_dimensions():
 
 
 def test_ball_spectrum_matches_disk_and_four_dimensions():
-    from bench.problems.eigen import disk_spectrum
+    from lapbench.problems.eigen import disk_spectrum
     from scipy.special import jn_zeros
 
     assert np.allclose(ball_spectrum(2, 12)[0], disk_spectrum(1.0, 12)[0], rtol=1e-14)
@@ -344,7 +344,7 @@ def test_eigen_ball_modes_are_eigenfunctions_spanning_each_cluster(dim, k):
 
 def test_eigen_metric_accepts_any_basis_of_a_ball_eigenspace():
     # rotate the reference modes inside each cluster: eigenvalue error 0 and every angle 0
-    from bench.metrics import clusters
+    from lapbench.metrics import clusters
 
     p = make_problem({"name": "eigen_ball", "dim": 3, "k": 9})
     Q = np.eye(len(p.eigenvalues))

@@ -13,10 +13,10 @@ import sympy as sp
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from bench import cli
-from bench.expr import FUNCTIONS, ExpressionError, X, Y, parse
-from bench.records import RecordWarning, iter_records, load_records, read_record, to_frame
-from bench.run import Case, run_case
+from lapbench import cli
+from lapbench.expr import FUNCTIONS, ExpressionError, X, Y, parse
+from lapbench.records import RecordWarning, iter_records, load_records, read_record, to_frame
+from lapbench.run import Case, run_case
 
 CANARY = f"/tmp/lapbench-canary-{os.getpid()}"
 
@@ -219,8 +219,8 @@ def test_terabyte_grid_is_refused_with_an_estimate(capsys, tmp_path):
 
 
 def test_the_memory_limit_decides_which_grids_are_admitted(tmp_path):
-    from bench.config import ConfigError
-    from bench.run import prepare
+    from lapbench.config import ConfigError
+    from lapbench.run import prepare
 
     case = Case(problem={"name": "sine"}, solver={"name": "fd5", "n": 2048})
     prepare(case, tmp_path)  # about 5.7 GiB: under the default 8192 MiB
@@ -281,7 +281,7 @@ def test_foreign_files_are_skipped_with_a_warning_and_never_crash_the_report(tmp
     assert all("skipping" in str(w.message) for w in skipped)
     assert len(to_frame(recs)) == 1
 
-    from bench.report import FigureOptions, ReportConfig, write_report
+    from lapbench.report import FigureOptions, ReportConfig, write_report
 
     # figures off: they are drawn from the same loaded records, and cost seconds to render
     cfg = ReportConfig(name="hostile", results=[str(tmp_path)], figures=FigureOptions(kinds=[]))
@@ -308,7 +308,7 @@ def test_any_field_of_a_record_replaced_by_junk_never_crashes_a_loader(tmp_path_
         warnings.simplefilter("ignore", RecordWarning)
         recs = list(iter_records(base))
         frame = to_frame(recs)
-        from bench.report import results_table
+        from lapbench.report import results_table
 
         results_table(frame)
     assert 1 <= len(recs) <= 2

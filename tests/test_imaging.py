@@ -2,14 +2,14 @@
 import numpy as np
 import pytest
 
-from bench.config import ConfigError
-from bench.domains import Mask, Rectangle, make_domain
-from bench.fields import Field
-from bench.image_metrics import psnr
-from bench.metrics import measure
-from bench.problems import Problem, make_problem
-from solvers import SOLVERS
-from solvers.pixel import PIXEL_SOLVERS, pixel_solve
+from lapbench.config import ConfigError
+from lapbench.domains import Mask, Rectangle, make_domain
+from lapbench.fields import Field
+from lapbench.image_metrics import psnr
+from lapbench.metrics import measure
+from lapbench.problems import Problem, make_problem
+from lapbench.solvers import SOLVERS
+from lapbench.solvers.pixel import PIXEL_SOLVERS, pixel_solve
 
 # a 10 x 10 mask whose inner 8 x 8 pixels are True: with the frame, 12 x 12 pixels of side 1/12,
 # the region is the square [2/12, 10/12]^2
@@ -196,7 +196,7 @@ def test_generated_masks_are_seeded_and_valid(shape):
 
 @pytest.mark.parametrize("cfg", [{"solution": "cubic"}, {"solution": "exp_sin"}, {"solution": "wave", "k": 2.0}])
 def test_mask_exact_solutions_satisfy_pde_and_boundary(cfg):
-    from bench.numerics import fd_laplacian  # fourth-order central differences (common practice)
+    from lapbench.numerics import fd_laplacian  # fourth-order central differences (common practice)
 
     p = make_problem({"name": "mask_exact", **cfg})
     pts = p.domain.sample_interior(200, np.random.default_rng(0))
@@ -268,7 +268,7 @@ def test_bad_image_problem_configs(cfg, rule):
 
 
 def test_colour_composite_finds_the_three_channel_runs():
-    from bench.report.images import _channel_siblings, _composite
+    from lapbench.report.images import _channel_siblings, _composite
 
     def rec(channel, solver="pixel5"):
         return {"status": "ok", "metrics": {"image": {"hole_values": [0.5]}},

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pytest
 
-from bench.records import read_record
+from lapbench.records import read_record
 from tests.conftest import LAPBENCH, ROOT
 from tests.fault_solvers import FAULTS
 
@@ -94,7 +94,7 @@ def test_slurm_preset_becomes_a_batch_script(tmp_path, monkeypatch):
     from hydra_plugins.hydra_submitit_launcher.config import BaseQueueConf
     from omegaconf import OmegaConf
 
-    from bench.cli import conf_dir
+    from lapbench.cli import conf_dir
 
     fake = tmp_path / "bin"
     fake.mkdir()

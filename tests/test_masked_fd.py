@@ -2,12 +2,12 @@
 import numpy as np
 import pytest
 
-from bench.config import ConfigError
-from bench.metrics import solution_errors
-from bench.problems import make_problem
-from solvers import SOLVERS
-from solvers.disk_spectral import DiskChebyshev
-from solvers.fd import FD5
+from lapbench.config import ConfigError
+from lapbench.metrics import solution_errors
+from lapbench.problems import make_problem
+from lapbench.solvers import SOLVERS
+from lapbench.solvers.disk_spectral import DiskChebyshev
+from lapbench.solvers.fd import FD5
 
 
 def slope(h, e):

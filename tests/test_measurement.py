@@ -10,8 +10,8 @@ import statistics
 
 import pytest
 
-from bench.records import load_records, problem_id, to_frame
-from bench.run import Case, run_case
+from lapbench.records import load_records, problem_id, to_frame
+from lapbench.run import Case, run_case
 from tests.conftest import ROOT  # noqa: F401  (puts the repository root on sys.path for tests.*)
 
 COST = "tests.fault_solvers.CostSolver"
@@ -122,7 +122,7 @@ def test_memory_counts_heap_reused_from_the_harness(tmp_path):
 
     code = f"""
 import ctypes, json, numpy as np
-from bench.run import Case, run_case
+from lapbench.run import Case, run_case
 libc = ctypes.CDLL("libc.so.6")
 libc.mallopt(-3, 1 << 30); libc.mallopt(-1, 1 << 30)   # M_MMAP_THRESHOLD, M_TRIM_THRESHOLD: 1 GiB
 block = np.ones(400 * 2 ** 17); del block              # 400 MiB freed into the heap

@@ -14,17 +14,17 @@ from math import comb
 import numpy as np
 import pytest
 
-from bench.fields import Field
-from bench.problems import make_problem
-from solvers import SOLVERS
-from solvers.base import Budget
-from solvers.fast_poisson import box_eigenvalues, box_solve, divide_by_eigenvalues
-from solvers.fd import box_matrix
-from solvers.grid import (TensorLagrange, apply_stencil, box_axes, box_fold_boundary, box_operator, box_rhs,
+from lapbench.fields import Field
+from lapbench.problems import make_problem
+from lapbench.solvers import SOLVERS
+from lapbench.solvers.base import Budget
+from lapbench.solvers.fast_poisson import box_eigenvalues, box_solve, divide_by_eigenvalues
+from lapbench.solvers.fd import box_matrix
+from lapbench.solvers.grid import (TensorLagrange, apply_stencil, box_axes, box_fold_boundary, box_operator, box_rhs,
                           default_n)
-from solvers.linalg import solve_spd
-from solvers.sparse_grid import combination_levels, combination_solve, combine, grid_count
-from solvers.spectral import TensorBarycentric, cheb_axes, cheb_box_solve
+from lapbench.solvers.linalg import solve_spd
+from lapbench.solvers.sparse_grid import combination_levels, combination_solve, combine, grid_count
+from lapbench.solvers.spectral import TensorBarycentric, cheb_axes, cheb_box_solve
 
 UNIT3 = np.array([[0.0, 1.0]] * 3)
 # closed form: exp(x + y) sin(sqrt(2) z) is harmonic (1 + 1 - 2 = 0), not a product of sines

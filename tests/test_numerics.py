@@ -2,7 +2,7 @@
 import numpy as np
 import pytest
 
-from bench.numerics import fd_laplacian
+from lapbench.numerics import fd_laplacian
 
 
 @pytest.mark.parametrize("dim", [1, 2, 3, 5])

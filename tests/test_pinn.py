@@ -16,17 +16,17 @@ import sys
 import numpy as np
 import pytest
 
-from bench.config import ConfigError
-from bench.metrics import solution_errors
-from bench.problems import make_problem
-from solvers import SOLVERS
-from solvers.base import Budget, RunContext
-from solvers.pinn import PRESETS
+from lapbench.config import ConfigError
+from lapbench.metrics import solution_errors
+from lapbench.problems import make_problem
+from lapbench.solvers import SOLVERS
+from lapbench.solvers.base import Budget, RunContext
+from lapbench.solvers.pinn import PRESETS
 
 torch = pytest.importorskip("torch")
 
-from solvers.pinn.model import Network  # noqa: E402  (after the torch check)
-from solvers.pinn.sampling import fd_derivatives, point_data  # noqa: E402
+from lapbench.solvers.pinn.model import Network  # noqa: E402  (after the torch check)
+from lapbench.solvers.pinn.sampling import fd_derivatives, point_data  # noqa: E402
 
 TINY = {"width": 16, "depth": 2, "n_interior": 256, "n_boundary": 128, "adam_steps": 300,
         "lbfgs_steps": 150}
@@ -60,7 +60,7 @@ def test_preset_config_lists_every_option(name):
     """conf/solver/<preset>.yaml lists every option with the preset's defaults."""
     from omegaconf import OmegaConf
 
-    from bench.cli import conf_dir
+    from lapbench.cli import conf_dir
 
     cfg = OmegaConf.to_container(OmegaConf.load(conf_dir() / "solver" / f"{name}.yaml"))
     assert cfg.pop("name") == name
@@ -76,7 +76,7 @@ def test_preset_config_lists_every_option(name):
     ("adam_steps", -1, r"^`solver\.adam_steps` must be a non-negative integer"),
 ])
 def test_bad_options_name_the_field(field, value, match):
-    from bench.run import make_solver
+    from lapbench.run import make_solver
 
     with pytest.raises(ConfigError, match=match):
         make_solver({"name": "pinn_hard", field: value})
@@ -130,7 +130,7 @@ def test_stream_activation_backward_passes_gradcheck(activation, order):
     """The hand-written backward of solvers/pinn/streams.py against central differences of its
     own forward (torch.autograd.gradcheck, float64, its default eps 1e-6 and tolerances), for the
     stacked layer and the first layer (gradient rows shared by all points)."""
-    from solvers.pinn.streams import activate_first, activate_stacked
+    from lapbench.solvers.pinn.streams import activate_first, activate_stacked
 
     gen = torch.Generator().manual_seed(11)
     k = 2 + order
@@ -171,7 +171,7 @@ def test_weight_gradients_of_forward_laplacian_match_nested_autograd(activation,
 
 def test_boundary_function_derivatives_closed_form():
     """FD derivatives of phi on the unit square, also with one-sided stencils at the edges:
-    phi = 16 x(1-x) y(1-y) (bench.domains.Rectangle.phi), grad and Laplacian in closed form,
+    phi = 16 x(1-x) y(1-y) (lapbench.domains.Rectangle.phi), grad and Laplacian in closed form,
     Lap phi = -32 (x(1-x) + y(1-y)). Quadratic in each variable, so the second-order formulas
     are exact up to rounding (eps / h^2 ~ 1e-8)."""
     prob = make_problem({"name": "sine"})
@@ -185,12 +185,12 @@ def test_boundary_function_derivatives_closed_form():
 
 
 def test_boundary_extension_laplacian_on_the_disk():
-    """Finite-difference derivatives of the disk's extension (bench.domains.Disk) against closed
+    """Finite-difference derivatives of the disk's extension (lapbench.domains.Disk) against closed
     forms. On the unit disk g = x^2 - y^2 is cos 2 theta on the circle (mean 0), so
     g_ext = s(t) cos 2 theta with t = (rho - rho0) / (1 - rho0) and s(t) = 10 t^3 - 15 t^4 + 6 t^5;
     in polar coordinates Lap g_ext = (s_rr + s_r / rho - 4 s / rho^2) cos 2 theta; and
     phi = 1 - r^2 has Lap phi = -4."""
-    from bench.domains.round import DISK_BLEND_INNER as r0
+    from lapbench.domains.round import DISK_BLEND_INNER as r0
 
     prob = make_problem({"name": "disk_harmonic"}).public()
     g = lambda p: p[:, 0] ** 2 - p[:, 1] ** 2  # noqa: E731
@@ -265,7 +265,7 @@ def test_rar_adds_points():
     ("tanh", "loss grew from"),    # saturating activation: finite but astronomically large loss
 ])
 def test_absurd_learning_rate_is_diverged(tmp_path, activation, why):
-    from bench.run import Case, run_case
+    from lapbench.run import Case, run_case
 
     case = Case(problem={"name": "sine"}, solver={"name": "pinn_soft", **TINY, "lr": 1e12,
                                                    "lbfgs_steps": 0, "activation": activation},
@@ -312,8 +312,8 @@ def test_cap_during_lbfgs_keeps_best_parameters():
 
 def test_history_is_geometric_in_time(tmp_path):
     """Through the harness: checkpoints carry the loss terms and the harness-side error."""
-    from bench.run import Case, run_case
-    from solvers.pinn.train import CHECKPOINT_FIRST, CHECKPOINT_GROWTH
+    from lapbench.run import Case, run_case
+    from lapbench.solvers.pinn.train import CHECKPOINT_FIRST, CHECKPOINT_GROWTH
 
     case = Case(problem={"name": "sine"}, solver={"name": "pinn_hard", **TINY}, seed=0,
                 budget={"time_limit": 120})
@@ -335,7 +335,7 @@ def test_history_is_geometric_in_time(tmp_path):
 # -- the training driver (solvers/pinn/train.py) on objectives with known minimisers ----------
 def _objective(fn, theta0):
     """A `train.Objective` over one float64 parameter vector starting at `theta0`."""
-    from solvers.pinn.train import Objective
+    from lapbench.solvers.pinn.train import Objective
 
     theta = torch.nn.Parameter(torch.tensor(theta0, dtype=torch.float64))
     return Objective(lambda step: (fn(theta), {"norm": theta.detach().norm()}), [theta]), theta
@@ -344,7 +344,7 @@ def _objective(fn, theta0):
 def test_driver_lbfgs_reaches_the_minimiser_of_a_quadratic():
     """0.5 t'At - b't has its minimiser at A^-1 b (numpy.linalg.solve); L-BFGS from 0 reaches it
     and stops by its own tolerance; every history entry carries the objective's logs and tags."""
-    from solvers.pinn.train import Schedule, train
+    from lapbench.solvers.pinn.train import Schedule, train
 
     rng = np.random.default_rng(0)
     M = rng.standard_normal((6, 6))
@@ -364,7 +364,7 @@ def test_driver_chunk_cut_by_its_evaluation_allowance_is_not_convergence(monkeyp
     """With an allowance of 6 evaluations per L-BFGS chunk every chunk ends after a few
     iterations; training must go on to the minimum (1, 1) of Rosenbrock's function (closed form)
     instead of calling the first short chunk converged."""
-    import solvers.pinn.train as tr
+    import lapbench.solvers.pinn.train as tr
 
     monkeypatch.setattr(tr, "LBFGS_EVALS", 6)
     obj, theta = _objective(lambda t: (1 - t[0]) ** 2 + 100 * (t[1] - t[0] ** 2) ** 2, [-1.2, 1.0])
@@ -378,7 +378,7 @@ def test_driver_chunk_cut_by_its_evaluation_allowance_is_not_convergence(monkeyp
 def test_driver_restarts_only_while_they_gain():
     """At a stationary point L-BFGS stops at once; the first restart is tried (nothing to compare
     with yet), the second would gain nothing and is not: one restart whatever the allowance."""
-    from solvers.pinn.train import Schedule, train
+    from lapbench.solvers.pinn.train import Schedule, train
 
     obj, theta = _objective(lambda t: (t * t).sum(), np.zeros(3))
     ctx = RunContext(seed=0)
@@ -388,8 +388,8 @@ def test_driver_restarts_only_while_they_gain():
 
 
 def test_driver_nan_is_diverged_with_step_and_tags():
-    from solvers.base import Diverged
-    from solvers.pinn.train import Schedule, train
+    from lapbench.solvers.base import Diverged
+    from lapbench.solvers.pinn.train import Schedule, train
 
     obj, _ = _objective(lambda t: t.sum() / 0.0 * 0.0, np.ones(2))   # 0 * inf = NaN
     ctx = RunContext(seed=0)
@@ -399,22 +399,22 @@ def test_driver_nan_is_diverged_with_step_and_tags():
 
 # -- the package's shape ------------------------------------------------------------------------
 def test_modules_import_downwards_only():
-    """No module of solvers/pinn imports solvers.pinn.solver (the presets sit on top), and the
+    """No module of solvers/pinn imports lapbench.solvers.pinn.solver (the presets sit on top), and the
     imports between the family's modules form no circle (read from the source with ast)."""
     import ast
     import pathlib
 
-    import solvers.pinn
+    import lapbench.solvers.pinn
 
-    root = pathlib.Path(solvers.pinn.__file__).parent
+    root = pathlib.Path(lapbench.solvers.pinn.__file__).parent
     graph = {}
     for f in root.glob("*.py"):
         deps = set()
         for node in ast.walk(ast.parse(f.read_text())):
-            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("solvers.pinn."):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("lapbench.solvers.pinn."):
                 deps.add(node.module.split(".")[2])
             elif isinstance(node, ast.Import):
-                deps |= {a.name.split(".")[2] for a in node.names if a.name.startswith("solvers.pinn.")}
+                deps |= {a.name.split(".")[2] for a in node.names if a.name.startswith("lapbench.solvers.pinn.")}
         graph[f.stem] = deps
     assert {m for m, deps in graph.items() if "solver" in deps} == {"__init__"}, graph
     seen, done = set(), set()
@@ -434,9 +434,9 @@ def test_modules_import_downwards_only():
 
 def test_every_option_name_has_an_implementation():
     """The validated spellings (options.py) and the tables that implement them agree."""
-    from solvers.pinn.model import torch_dtype
-    from solvers.pinn.options import ACTIVATIONS, LAPLACIAN_METHODS, PRECISIONS, SAMPLINGS
-    from solvers.pinn.sampling import interior_points
+    from lapbench.solvers.pinn.model import torch_dtype
+    from lapbench.solvers.pinn.options import ACTIVATIONS, LAPLACIAN_METHODS, PRECISIONS, SAMPLINGS
+    from lapbench.solvers.pinn.sampling import interior_points
 
     gen = torch.Generator().manual_seed(0)
     x = torch.rand(4, 2, dtype=torch.float64, generator=gen)

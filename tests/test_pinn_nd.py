@@ -12,16 +12,16 @@ import itertools
 import numpy as np
 import pytest
 
-from bench.config import ConfigError
-from bench.problems import make_problem
-from solvers import SOLVERS
-from solvers.base import Budget, RunContext
+from lapbench.config import ConfigError
+from lapbench.problems import make_problem
+from lapbench.solvers import SOLVERS
+from lapbench.solvers.base import Budget, RunContext
 
 torch = pytest.importorskip("torch")
 
-from solvers.pinn.losses import Batch, Loss  # noqa: E402  (after the torch check)
-from solvers.pinn.model import Network  # noqa: E402
-from solvers.pinn.sampling import PointData  # noqa: E402
+from lapbench.solvers.pinn.losses import Batch, Loss  # noqa: E402  (after the torch check)
+from lapbench.solvers.pinn.model import Network  # noqa: E402
+from lapbench.solvers.pinn.sampling import PointData  # noqa: E402
 
 
 @pytest.fixture(scope="module", autouse=True)
@@ -100,7 +100,7 @@ TINY = {"width": 32, "depth": 3, "n_interior": 512, "n_boundary": 256, "adam_ste
 def test_presets_on_nd_harmonic(name, domain, extra, bound):
     """nd_harmonic in d = 5 (exp(a.x) cos(b.x), closed form): the relative L2 error on the
     scrambled-Sobol evaluation set, with its stated sampling error, below the measured bound."""
-    from bench.metrics import solution_errors
+    from lapbench.metrics import solution_errors
 
     prob = make_problem({"name": "nd_harmonic", "dim": 5, "domain": domain})
     solver = SOLVERS[name](params={**TINY, **extra})

@@ -16,8 +16,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from bench.config import ConfigError
-from bench.numerics import fd_laplacian  # fourth-order central differences (common practice)
+from lapbench.config import ConfigError
+from lapbench.numerics import fd_laplacian  # fourth-order central differences (common practice)
 from tests.conftest import LAPBENCH, ROOT
 
 EXAMPLE = ROOT / "examples" / "sor_solver"
@@ -30,7 +30,7 @@ import dataclasses
 
 import numpy as np
 
-from solvers.base import Solution, Solver, Tags
+from lapbench.solvers.base import Solution, Solver, Tags
 
 
 @dataclasses.dataclass
@@ -131,7 +131,7 @@ def records(d):
 
 def conform_inprocess(argv, capsys):
     """`lapbench conform ...` in this process: (exit code, stdout, stderr)."""
-    from bench.cli import main
+    from lapbench.cli import main
 
     with pytest.raises(SystemExit) as exc:
         main(["conform", *argv])
@@ -172,7 +172,7 @@ def test_example_plugin_runs_beside_builtins_and_in_the_report(tmp_path):
 
 
 def test_example_plugin_passes_the_conformance_command(tmp_path):
-    from bench.conformance import CHECKS
+    from lapbench.conformance import CHECKS
 
     p = lapbench(["conform", "--config-dir", str(EXAMPLE_CONF), "solver=sor", "solver.n=16"], tmp_path,
                  _env(EXAMPLE), check=0)
@@ -203,7 +203,7 @@ def test_provenance_names_the_installed_distribution(tmp_path):
                           "--no-index", "--target", str(site), str(src)], capture_output=True, text=True,
                          timeout=300)
     assert pip.returncode == 0, pip.stderr
-    code = ("import json; from bench.run import make_solver; "
+    code = ("import json; from lapbench.run import make_solver; "
             "print(json.dumps(make_solver({'_target_': 'sor_solver.SOR', 'name': 'sor', 'n': 8}).provenance()))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=_env(site),
                          cwd=tmp_path, timeout=300)
@@ -232,7 +232,7 @@ def test_conform_reports_failing_checks_with_reasons(broken, solver, check, reas
 @pytest.mark.parametrize("solver, message", [
     ("no_solve", "`solver._target_` 'broken_plugins.NoSolve' does not implement the solver contract: "
                  "missing method `_solve(problem, budget, ctx)`"),
-    ("not_a_solver", "does not subclass solvers.base.Solver; missing attribute `family`"),
+    ("not_a_solver", "does not subclass lapbench.solvers.base.Solver; missing attribute `family`"),
     ("ghost", "`solver._target_` cannot import 'nosuch_plugin_pkg.solver.Ghost': ModuleNotFoundError: "
               "No module named 'nosuch_plugin_pkg'"),
     ("bad_type", "`solver.n` must be an integer, got 'eight' (set in "),
@@ -268,7 +268,7 @@ def test_failing_plugins_become_failed_records_and_the_sweep_goes_on(broken, tmp
 
 
 def test_plugin_may_not_take_a_builtin_name_or_disagree_with_its_config(broken, monkeypatch):
-    from bench.run import make_solver
+    from lapbench.run import make_solver
 
     monkeypatch.syspath_prepend(str(broken))
     with pytest.raises(ConfigError, match=r"^`solver.name` 'sor2' differs from the name 'raises'"):
@@ -276,7 +276,7 @@ def test_plugin_may_not_take_a_builtin_name_or_disagree_with_its_config(broken, 
     with pytest.raises(ConfigError, match=r"^`solver._target_` 'broken_plugins.harmonic_u' is a function, not a class"):
         make_solver({"_target_": "broken_plugins.harmonic_u"})
     # a built-in through _target_ is itself, not a clash
-    assert make_solver({"_target_": "solvers.fd.FD5", "name": "fd5", "n": 8}).provenance()["plugin"]["distribution"] \
+    assert make_solver({"_target_": "lapbench.solvers.fd.FD5", "name": "fd5", "n": 8}).provenance()["plugin"]["distribution"] \
         == "lapbench"
 
 
@@ -286,7 +286,7 @@ def test_plugin_may_not_take_a_builtin_name_or_disagree_with_its_config(broken, 
 def _load(path):
     from omegaconf import OmegaConf
 
-    from bench.problems import make_problem
+    from lapbench.problems import make_problem
 
     return make_problem(OmegaConf.to_container(OmegaConf.load(path), resolve=True))
 
@@ -313,7 +313,7 @@ def test_polygon_user_problem_runs_end_to_end(tmp_path):
 def test_polygon_computed_reference_within_its_estimate():
     """The gable problem given by source and boundary only: the computed reference (P2 finite
     elements) against the manufactured exact solution that the same data come from."""
-    from bench.problems import make_problem
+    from lapbench.problems import make_problem
 
     gable = _load(USER_PROBLEMS / "problem" / "gable.yaml")
     # -Laplace(exp(x/2) sin(3y/2) + xy/4) = 2 exp(x/2) sin(3y/2) (hand derivation, checked in
@@ -353,7 +353,7 @@ def _membrane_series(pts, terms=20001):
 
 @pytest.mark.parametrize("solver, resolution", [("fd5", 128), ("fd9", 64)])
 def test_computed_reference_is_labelled_and_within_its_estimate(solver, resolution):
-    from bench.problems import make_problem
+    from lapbench.problems import make_problem
 
     prob = make_problem({"name": "custom", "source": "1", "boundary": "0",
                          "reference": {"solver": solver, "resolution": resolution}})
@@ -366,7 +366,7 @@ def test_computed_reference_is_labelled_and_within_its_estimate(solver, resoluti
 
 
 def test_computed_eigen_reference_against_closed_form():
-    from bench.problems import make_problem
+    from lapbench.problems import make_problem
 
     prob = make_problem({"name": "custom", "kind": "eigen", "n_eigs": 4,
                          "reference": {"solver": "fd9", "resolution": 64}})
@@ -386,7 +386,7 @@ def test_stated_eigenvalues_keep_their_source():
 
 
 def test_callable_data(broken, monkeypatch):
-    from bench.problems import make_problem
+    from lapbench.problems import make_problem
 
     monkeypatch.syspath_prepend(str(broken))
     prob = make_problem({"name": "custom", "kind": "laplace",
@@ -414,7 +414,7 @@ def test_callable_data(broken, monkeypatch):
     ({"exact": 3}, r"^`problem.exact` must be a string or a mapping"),
 ])
 def test_bad_user_problems(cfg, match):
-    from bench.problems import make_problem
+    from lapbench.problems import make_problem
 
     with pytest.raises(ConfigError, match=match):
         make_problem({"name": "custom", **cfg})

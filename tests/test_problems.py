@@ -7,9 +7,9 @@ import numpy as np
 import pytest
 from omegaconf import OmegaConf
 
-from bench.cli import conf_dir
-from bench.problems import BoundaryDataError, make_problem, plate_series, plate_terms
-from bench.numerics import fd_laplacian  # fourth-order central differences (common practice)
+from lapbench.cli import conf_dir
+from lapbench.problems import BoundaryDataError, make_problem, plate_series, plate_terms
+from lapbench.numerics import fd_laplacian  # fourth-order central differences (common practice)
 
 RECT_PRESETS = ["sine", "harmonic", "peak", "wavefront", "layer", "expr"]
 
@@ -118,7 +118,7 @@ def test_public_view_hides_exact_and_guards_boundary_data():
     ({"name": "plate", "profile": "wavy"}, r"`problem.profile` must be one of"),
 ])
 def test_bad_problem_configs(cfg, match):
-    from bench.config import ConfigError
+    from lapbench.config import ConfigError
 
     with pytest.raises(ConfigError, match=match):
         make_problem(cfg)

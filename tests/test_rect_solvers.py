@@ -3,11 +3,11 @@ import numpy as np
 import pytest
 import scipy.sparse.linalg as spla
 
-from bench.metrics import solution_errors
-from bench.problems import make_problem
-from solvers import SOLVERS
-from solvers.fast_poisson import _eigen_grid, dirichlet_eigenvalues
-from solvers.grid import TensorGrid, discrete_rhs, interior_matrix
+from lapbench.metrics import solution_errors
+from lapbench.problems import make_problem
+from lapbench.solvers import SOLVERS
+from lapbench.solvers.fast_poisson import _eigen_grid, dirichlet_eigenvalues
+from lapbench.solvers.grid import TensorGrid, discrete_rhs, interior_matrix
 
 
 def rel_l2(problem, solver, metric="rel_l2"):

@@ -17,12 +17,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from bench.config import ConfigError, build_params
-from bench.records import SCHEMA_VERSION, problem_config_hash, write_record
-from bench.report import (ReportConfig, _load, accuracy_at_budget, best_errors, natural_key, order_fits,
+from lapbench.config import ConfigError, build_params
+from lapbench.records import SCHEMA_VERSION, problem_config_hash, write_record
+from lapbench.report import (ReportConfig, _load, accuracy_at_budget, best_errors, natural_key, order_fits,
                           pareto_front, results_table, run_points, seed_summary, speedup_table, status_counts,
                           time_to_tolerance, upper_median, write_report)
-from bench.report import rules as report_rules
+from lapbench.report import rules as report_rules
 
 INF = math.inf
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"   # PNG specification (ISO/IEC 15948), file signature
@@ -303,7 +303,7 @@ def test_one_id_with_two_problem_configs_is_two_problems(tmp_path):
                                       "figures": {"kinds": []}}, prefix="report")
     recs, frame = _load(cfg)
     # the id of each problem: its id string, then " #" and the first 6 digits of its config's hash
-    # (bench.records.to_frame's rule for ids shared by different configs)
+    # (lapbench.records.to_frame's rule for ids shared by different configs)
     pid = {r["problem"]["domain"]["kind"]: "expr(u=x*y) #" + problem_config_hash(r["problem"]["config"])[:6]
            for r in recs}
     assert pid["disk"] != pid["rectangle"]

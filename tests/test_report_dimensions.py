@@ -7,11 +7,11 @@ from __future__ import annotations
 
 import math
 
-from bench.config import build_params
-from bench.report import ReportConfig, _load
-from bench.report.dimensions import dimension_table, fig_dimensions, record_dimension
-from bench.report.figures import Figure
-from bench.report.style import _save
+from lapbench.config import build_params
+from lapbench.report import ReportConfig, _load
+from lapbench.report.dimensions import dimension_table, fig_dimensions, record_dimension
+from lapbench.report.figures import Figure
+from lapbench.report.style import _save
 from tests.test_report import PNG_MAGIC, hist, make_record, write_all
 
 

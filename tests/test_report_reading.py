@@ -19,9 +19,9 @@ from pathlib import Path
 import matplotlib.colors as mcolors
 import pytest
 
-from bench.config import build_params
-from bench.report import ReportConfig, _load, write_report
-from bench.report import figures as report_figures
+from lapbench.config import build_params
+from lapbench.report import ReportConfig, _load, write_report
+from lapbench.report import figures as report_figures
 from tests.test_report import classical_ladder, field_of, make_record, pinn_seeds, write_all
 
 LONG = {"alpha": 1000.0, "xc": 0.5, "yc": 0.5}   # a long problem id: peak(alpha=1000.0,xc=0.5,yc=0.5)

@@ -12,8 +12,8 @@ from pathlib import Path
 
 import psutil
 
-from bench.records import read_record
-from bench.run import Case, run_case
+from lapbench.records import read_record
+from lapbench.run import Case, run_case
 from tests.conftest import LAPBENCH, ROOT
 
 N_CASES = 8
@@ -162,7 +162,7 @@ def test_stale_temporaries_are_removed_by_the_next_write(tmp_path):
     """A writer killed between mkstemp and os.replace leaves a .tmp-*.json; the next record
     written into that folder removes it once it is older than STALE_TEMPORARY_S, while a fresh
     one (a live writer's) and other files are left alone."""
-    from bench.records import STALE_TEMPORARY_S, write_atomic
+    from lapbench.records import STALE_TEMPORARY_S, write_atomic
 
     stale, live, other = (tmp_path / n for n in (".tmp-killed.json", ".tmp-live.json", "keep.json"))
     for p in (stale, live, other):

@@ -5,12 +5,12 @@ import numpy as np
 import pytest
 from omegaconf import OmegaConf
 
-from bench.cli import conf_dir
-from bench.config import ConfigError
-from bench.domains import Rectangle, make_domain
-from bench.problems import BoundaryDataError, make_problem
-from bench.domains import LSHAPE_VERTICES, Annulus, Disk, Polygon, lshape
-from bench.numerics import fd_laplacian  # fourth-order central differences (common practice)
+from lapbench.cli import conf_dir
+from lapbench.config import ConfigError
+from lapbench.domains import Rectangle, make_domain
+from lapbench.problems import BoundaryDataError, make_problem
+from lapbench.domains import LSHAPE_VERTICES, Annulus, Disk, Polygon, lshape
+from lapbench.numerics import fd_laplacian  # fourth-order central differences (common practice)
 
 SQUARE = [[0, 0], [1, 0], [1, 1], [0, 1]]
 TRIANGLE = [[0, 0], [4, 0], [0, 3]]
@@ -257,7 +257,7 @@ def test_presets_build_and_polygon_config_from_yaml():
 
 
 def test_unsupported_pairing_is_a_record(tmp_path):
-    from bench.run import Case, run_case
+    from lapbench.run import Case, run_case
 
     rec, _ = run_case(Case(problem={"name": "disk_harmonic"}, solver={"name": "cheb", "n": 8}),
                       results_dir=tmp_path)

@@ -23,7 +23,7 @@ from pathlib import Path
 
 import pytest
 
-from bench.records import read_record
+from lapbench.records import read_record
 from tests.conftest import LAPBENCH, ROOT
 
 CI = ROOT / ".ci"

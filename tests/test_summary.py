@@ -8,10 +8,10 @@ from __future__ import annotations
 
 import pytest
 
-from bench.config import build_params
-from bench.report import ReportConfig, _load, write_report
-from bench.report.rules import EXPECTED_ORDER, expected_order, floored, reference_floor
-from bench.report.tables import build_tables
+from lapbench.config import build_params
+from lapbench.report import ReportConfig, _load, write_report
+from lapbench.report.rules import EXPECTED_ORDER, expected_order, floored, reference_floor
+from lapbench.report.tables import build_tables
 from tests.test_report import make_record, write_all
 
 
@@ -104,6 +104,6 @@ def test_summary_on_top_of_the_written_report(tmp_path):
 
 @pytest.mark.parametrize("solver", sorted(EXPECTED_ORDER))
 def test_expected_orders_cover_registered_solvers(solver):
-    from solvers import SOLVERS
+    from lapbench.solvers import SOLVERS
 
     assert solver in SOLVERS and SOLVERS[solver].family != "pinn"

@@ -13,10 +13,10 @@ import math
 import numpy as np
 import pytest
 
-from bench.config import ConfigError
-from bench.run import Case
-from bench.tolerance import KNOBS, Knob, knob_for, metric_for, solve_to_tolerance
-from solvers.base import Solution, Solver, Tags
+from lapbench.config import ConfigError
+from lapbench.run import Case
+from lapbench.tolerance import KNOBS, Knob, knob_for, metric_for, solve_to_tolerance
+from lapbench.solvers.base import Solution, Solver, Tags
 
 FAST = {"repeats": 1, "min_time": 0.0}     # status-only: one timed run per probe
 
@@ -117,7 +117,7 @@ def test_knobs_and_metrics_are_checked():
     with pytest.raises(ConfigError, match="`tolerance` must be a positive number"):
         solve_to_tolerance(_case(), -1.0)
     # every declared knob names a field of its solver's Params, and its range fits the Params' checks
-    from solvers import SOLVERS
+    from lapbench.solvers import SOLVERS
 
     for name, k in KNOBS.items():
         fields = {f.name for f in dataclasses.fields(SOLVERS[name].Params)}
@@ -140,7 +140,7 @@ def test_eigen_problem_to_tolerance(tmp_path):
 
 # -- tolerance suites (`tolerances:` and `solver.<knob>: auto` in conf/suite/*.yaml) ---------------
 def test_suite_tolerances_expand_to_one_search_per_tolerance():
-    from bench.suites import expand_suite, split_tolerance
+    from lapbench.suites import expand_suite, split_tolerance
 
     cases = expand_suite({"name": "t", "cases": [{"problem": "sine", "solver": ["fd5", "cheb"], "solver.n": "auto",
                                                   "tolerances": [1e-3, 1e-6]}]})
@@ -156,7 +156,7 @@ def test_suite_tolerances_expand_to_one_search_per_tolerance():
     ({"problem": "sine", "solver": "fd5", "tolerances": []}, "must list at least one error"),
 ])
 def test_suite_tolerances_bad_input(grid, message):
-    from bench.suites import expand_suite
+    from lapbench.suites import expand_suite
 
     with pytest.raises(ConfigError, match=message.replace("[", r"\[").replace("]", r"\]")):
         expand_suite({"name": "t", "cases": [grid]})
@@ -176,7 +176,7 @@ def _lapbench(args, cwd):
     from pathlib import Path
 
     root = Path(__file__).resolve().parents[1]
-    return subprocess.run([sys.executable, "-c", "from bench.cli import main; main()"] + args, capture_output=True,
+    return subprocess.run([sys.executable, "-c", "from lapbench.cli import main; main()"] + args, capture_output=True,
                           text=True, cwd=cwd, env={**os.environ, "PYTHONPATH": str(root)}, timeout=300)
 
 

@@ -8,8 +8,8 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from bench.config import ConfigError, conf_dir
-from bench.lattice import (BUILTIN, Torus, d_plus_basis, gram, inverse, lll_reduce, load_torus, parse_basis,
+from lapbench.config import ConfigError, conf_dir
+from lapbench.lattice import (BUILTIN, Torus, d_plus_basis, gram, inverse, lll_reduce, load_torus, parse_basis,
                            short_vector_counts, shortest_vectors_index, sublattice_index, torus_spectrum,
                            vectors_of_norm)
 

@@ -13,8 +13,8 @@ import math
 import numpy as np
 import pytest
 
-from bench.config import ConfigError
-from solvers.walk_on_spheres import WalkOnSpheres, sample_green_radius, walk_on_spheres
+from lapbench.config import ConfigError
+from lapbench.solvers.walk_on_spheres import WalkOnSpheres, sample_green_radius, walk_on_spheres
 
 
 def _ball(d):
@@ -134,9 +134,9 @@ def test_solver_on_catalogue_problem_matches_its_stated_error():
     """nd_harmonic on the 4-ball through the solver: the harness's relative L2 error equals the
     statistical error the solver states in info (the eps bias is negligible), within the
     sampling spread of both, and evaluate returns the timed solve's values at its points."""
-    from bench.metrics import solution_errors
-    from bench.problems import make_problem
-    from solvers.base import Budget, RunContext
+    from lapbench.metrics import solution_errors
+    from lapbench.problems import make_problem
+    from lapbench.solvers.base import Budget, RunContext
 
     prob = make_problem({"name": "nd_harmonic", "dim": 4, "domain": "ball"})
     sol = WalkOnSpheres(params={"walks": 8}).solve(prob.public(), Budget(train_time=60), RunContext(seed=0))

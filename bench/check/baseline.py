@@ -1,13 +1,13 @@
 """Baselines: the reviewed, committed summary of a suite's records that `lapbench check` compares with.
 
 A baseline file (``results/baseline/<suite>.json``) holds one *entry* per case, keyed by a
-stable case key (`bench.records.case_key`) built from what the case is, never from where or when it ran::
+stable case key (`lapbench.records.case_key`) built from what the case is, never from where or when it ran::
 
     <problem id> <solver>[<non-default options>] <resolution> seed=<seed>
     e.g.  "peak(alpha=1000.0,xc=0.5,yc=0.5) fd5[linear_solver=amg] n=64 seed=0"
 
 Each entry keeps the status, the harness-measured errors, the solver time in seconds and
-normalised by the calibration kernel (`bench.calibration`), the seed and thread count. The file
+normalised by the calibration kernel (`lapbench.calibration`), the seed and thread count. The file
 is pretty-printed with sorted keys and one case per line, so a review diff shows exactly the
 cases that changed. A current run is summarised by the same functions, so that the comparison
 is entry against entry.
@@ -21,8 +21,8 @@ import statistics
 from datetime import datetime, timezone
 from pathlib import Path
 
-from bench.config import ConfigError
-from bench.records import case_key, resolution_label
+from lapbench.config import ConfigError
+from lapbench.records import case_key, resolution_label
 
 __all__ = ["BASELINE_FORMAT", "BASELINE_SCHEMA_VERSION", "case_key", "group_key", "solver_options",
            "entry_from_record", "key_of_prepared", "summarise", "dumps_baseline", "write_baseline",
@@ -51,7 +51,7 @@ def _flatten(d: dict, prefix: str = "") -> dict:
 def _defaults(solver_name: str) -> dict | None:
     """The registered solver's option defaults (flattened), or None for an unknown solver."""
     try:
-        from solvers import SOLVERS
+        from lapbench.solvers import SOLVERS
     except Exception:  # noqa: BLE001
         return None
     cls = SOLVERS.get(solver_name)
@@ -110,8 +110,8 @@ def group_key(entry: dict) -> str:
 
 
 def key_of_prepared(prep) -> str:
-    """The key of a prepared case (bench.run.prepare), whether or not it has a record yet."""
-    from bench.run import problem_key
+    """The key of a prepared case (lapbench.run.prepare), whether or not it has a record yet."""
+    from lapbench.run import problem_key
 
     res = prep.solver.resolution()
     return case_key(problem_key(prep), prep.solver.name, resolution_label(res),
@@ -181,7 +181,7 @@ def _provenance(records: list[dict]) -> dict:
     env = lambda r: r.get("environment") or {}  # noqa: E731
     cals = sorted(env(r)["calibration_s"] for r in records if env(r).get("calibration_s"))
     created = sorted(r.get("created") for r in records if r.get("created"))
-    from bench.records import SCHEMA_VERSION
+    from lapbench.records import SCHEMA_VERSION
 
     return {
         "records": len(records),
@@ -253,8 +253,8 @@ def dumps_baseline(doc: dict) -> str:
 
 
 def write_baseline(path: str | Path, doc: dict) -> Path:
-    """Write atomically (bench.records.write_atomic)."""
-    from bench.records import write_atomic
+    """Write atomically (lapbench.records.write_atomic)."""
+    from lapbench.records import write_atomic
 
     return write_atomic(path, dumps_baseline(doc))
 

@@ -12,7 +12,7 @@ Rules (options in conf/check/default.yaml, overridable as ``check.<key>=...``):
   to at most ``stochastic_factor * max(baseline median, error_floor)``, and the number of
   failed seeds may not grow.
 - Runtime: the solver's time divided by the calibration kernel's time taken right before the
-  case (`bench.calibration`), clamped below at ``runtime_floor`` (tiny times are jitter), may
+  case (`lapbench.calibration`), clamped below at ``runtime_floor`` (tiny times are jitter), may
   grow by at most ``runtime_factor``; ``runtime`` says whether that is an ``error``, a ``warn``
   or ``off``. Cases during which other processes kept more than ``busy_limit`` cores busy (on
   either side) are not time-compared: their times measure the neighbours (a note says how many).
@@ -33,8 +33,8 @@ import math
 import statistics
 from pathlib import Path
 
-from bench.check.baseline import group_key
-from bench.config import ConfigError, one_of
+from lapbench.check.baseline import group_key
+from lapbench.config import ConfigError, one_of
 
 __all__ = ["CheckConfig", "Finding", "CheckResult", "compare", "EXIT_CLEAN", "EXIT_REGRESSION"]
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from bench.check.compare import VERDICTS, CheckResult, Finding
+from lapbench.check.compare import VERDICTS, CheckResult, Finding
 
 __all__ = ["format_table", "to_markdown", "to_junit"]
 

@@ -6,10 +6,10 @@ import dataclasses
 import sys
 from pathlib import Path
 
-from bench.check.baseline import key_of_prepared, read_baseline, summarise, write_baseline
-from bench.check.compare import CheckConfig, compare
-from bench.check.output import format_table, to_junit, to_markdown
-from bench.config import ConfigError
+from lapbench.check.baseline import key_of_prepared, read_baseline, summarise, write_baseline
+from lapbench.check.compare import CheckConfig, compare
+from lapbench.check.output import format_table, to_junit, to_markdown
+from lapbench.config import ConfigError
 
 __all__ = ["CHECK_USAGE", "CheckPlan", "plan_check", "run_check", "run_baseline"]
 
@@ -42,9 +42,9 @@ def plan_check(argv: list[str]) -> CheckPlan:
     """Parse arguments, compose the suite's cases and locate their records; no case runs here."""
     from omegaconf import OmegaConf
 
-    from bench.compose import Args, Session, case_from_cfg, strip_overrides
-    from bench.config import build_params
-    from bench.suites import expand_suite
+    from lapbench.compose import Args, Session, case_from_cfg, strip_overrides
+    from lapbench.config import build_params
+    from lapbench.suites import expand_suite
 
     args = Args(argv)
     if args.multirun:
@@ -75,10 +75,10 @@ def plan_check(argv: list[str]) -> CheckPlan:
 
 
 def _locate(case, results_dir) -> Path:
-    """The record file of a case, named as `bench.run.prepare` names it, without building the
+    """The record file of a case, named as `lapbench.run.prepare` names it, without building the
     problem (a manufactured problem runs sympy when built: seconds per case)."""
-    from bench.records import config_hash, record_path
-    from bench.run import make_solver
+    from lapbench.records import config_hash, record_path
+    from lapbench.run import make_solver
 
     solver = make_solver(case.solver)
     label = case.problem_label or case.problem.get("name")
@@ -89,7 +89,7 @@ def _collect(planned):
     """(records found, cases without a readable record)."""
     import warnings
 
-    from bench.records import RecordWarning, read_record
+    from lapbench.records import RecordWarning, read_record
 
     records, missing = [], []
     for case, path in planned:
@@ -108,7 +108,7 @@ def _collect(planned):
 def _key(case, results_dir) -> str:
     """The key of a case without a record: needs the problem's knobs, so the case is built (and
     validated) in full."""
-    from bench.run import prepare
+    from lapbench.run import prepare
 
     return key_of_prepared(prepare(case, results_dir))
 

@@ -1,15 +1,15 @@
 """Geometry: one module per domain kind, all listed in DOMAIN_KINDS (config key `kind`)."""
 from __future__ import annotations
 
-from bench.config import ConfigError
-from bench.domains.ball import Ball, ball_volume, unit_ball
-from bench.domains.base import Domain, EvalSet, gauss_legendre_panels, sobol_eval_set
-from bench.domains.box import Box, unit_box
-from bench.domains.mask import Mask
-from bench.domains.polygon import LSHAPE_VERTICES, Polygon, lshape
-from bench.domains.rectangle import Rectangle
-from bench.domains.round import Annulus, Disk, polar
-from bench.domains.triangulation import ear_clip, triangle_rule
+from lapbench.config import ConfigError
+from lapbench.domains.ball import Ball, ball_volume, unit_ball
+from lapbench.domains.base import Domain, EvalSet, gauss_legendre_panels, sobol_eval_set
+from lapbench.domains.box import Box, unit_box
+from lapbench.domains.mask import Mask
+from lapbench.domains.polygon import LSHAPE_VERTICES, Polygon, lshape
+from lapbench.domains.rectangle import Rectangle
+from lapbench.domains.round import Annulus, Disk, polar
+from lapbench.domains.triangulation import ear_clip, triangle_rule
 
 __all__ = ["Domain", "EvalSet", "Mask", "Rectangle", "Disk", "Annulus", "Polygon", "LSHAPE_VERTICES", "lshape",
            "DOMAIN_KINDS", "make_domain", "gauss_legendre_panels", "polar", "triangle_rule", "ear_clip",
@@ -22,7 +22,7 @@ DOMAIN_KINDS: dict[str, type[Domain]] = {"rectangle": Rectangle, "disk": Disk, "
 
 def make_domain(cfg: dict, field: str = "problem.domain") -> Domain:
     """Build a domain from its config mapping ``{kind: ..., <geometry>}``."""
-    from bench.config import build_params
+    from lapbench.config import build_params
 
     cfg = dict(cfg)
     kind = cfg.pop("kind", "rectangle")

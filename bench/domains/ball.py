@@ -14,9 +14,9 @@ import math
 
 import numpy as np
 
-from bench.config import positive
-from bench.domains.base import EvalSet, SolidDomain, coordinates, gauss_legendre_panels, sobol_eval_set
-from bench.domains.round import Disk, _smoothstep
+from lapbench.config import positive
+from lapbench.domains.base import EvalSet, SolidDomain, coordinates, gauss_legendre_panels, sobol_eval_set
+from lapbench.domains.round import Disk, _smoothstep
 
 __all__ = ["Ball", "ball_volume", "unit_ball"]
 

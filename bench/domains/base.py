@@ -180,7 +180,7 @@ class Domain(abc.ABC):
 
 def coordinates(name: str, value) -> tuple[float, ...]:
     """A config list of 1 .. MAX_DIM finite numbers as a tuple (ConfigError naming `name`)."""
-    from bench.config import ConfigError
+    from lapbench.config import ConfigError
 
     try:
         out = tuple(float(v) for v in value)

@@ -2,7 +2,7 @@
 
 Exact signed distance, the product distance function, uniform interior and surface sampling,
 Gauss-Legendre quadrature for d <= 2 (the 2-D box is the `Rectangle` rule) and randomised
-quasi-Monte Carlo evaluation sets for d >= 3 (`bench.domains.base.sobol_eval_set`).
+quasi-Monte Carlo evaluation sets for d >= 3 (`lapbench.domains.base.sobol_eval_set`).
 """
 from __future__ import annotations
 
@@ -10,9 +10,9 @@ import dataclasses
 
 import numpy as np
 
-from bench.config import ConfigError
-from bench.domains.base import MAX_DIM, EvalSet, SolidDomain, coordinates, gauss_legendre_panels, sobol_eval_set
-from bench.domains.rectangle import Rectangle
+from lapbench.config import ConfigError
+from lapbench.domains.base import MAX_DIM, EvalSet, SolidDomain, coordinates, gauss_legendre_panels, sobol_eval_set
+from lapbench.domains.rectangle import Rectangle
 
 __all__ = ["Box", "MAX_DIM", "unit_box"]
 

@@ -30,8 +30,8 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.config import ConfigError
-from bench.domains.base import Domain
+from lapbench.config import ConfigError
+from lapbench.domains.base import Domain
 
 __all__ = ["Mask", "MASK_SHAPES", "generate_mask"]
 
@@ -358,7 +358,7 @@ class Mask(Domain):
 
     def _rfun(self, p: np.ndarray) -> np.ndarray:
         """Unnormalised R-function distance 1 / sum_i 1/phi_i of the boundary segments."""
-        from bench.domains.polygon import Polygon
+        from lapbench.domains.polygon import Polygon
 
         E = len(self.segments[0])
         out = np.empty(len(p))
@@ -397,7 +397,7 @@ class Mask(Domain):
         on the segments only. The nearest-point data have a kink along the normals through the
         segment ends (unlike the polygon's Hermite-type blend): the extension is continuous, and
         smooth away from those normals."""
-        from bench.domains.polygon import Polygon
+        from lapbench.domains.polygon import Polygon
 
         p = np.asarray(points, dtype=float).reshape(-1, 2)
         A, B = self.segments
@@ -428,7 +428,7 @@ class Mask(Domain):
     def sample_boundary(self, n, rng=None):
         """Uniform in arc length over the boundary segments; outward normals (right of the
         segment's direction): the polygon's edge sampler on the segments."""
-        from bench.domains.polygon import Polygon
+        from lapbench.domains.polygon import Polygon
 
         return Polygon.sample_boundary(self._edges_view, n, rng)
 

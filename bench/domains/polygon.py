@@ -9,9 +9,9 @@ from functools import cached_property
 
 import numpy as np
 
-from bench.config import ConfigError
-from bench.domains.base import Domain
-from bench.domains.triangulation import (_cross, _graded_corner_rule, _map_rule, _segments_intersect, _subdivide,
+from lapbench.config import ConfigError
+from lapbench.domains.base import Domain
+from lapbench.domains.triangulation import (_cross, _graded_corner_rule, _map_rule, _segments_intersect, _subdivide,
                                          ear_clip, triangle_rule)
 
 __all__ = ["Polygon", "LSHAPE_VERTICES", "lshape"]

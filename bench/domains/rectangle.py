@@ -5,8 +5,8 @@ import dataclasses
 
 import numpy as np
 
-from bench.config import ConfigError
-from bench.domains.base import Domain, gauss_legendre_panels
+from lapbench.config import ConfigError
+from lapbench.domains.base import Domain, gauss_legendre_panels
 
 __all__ = ["Rectangle"]
 

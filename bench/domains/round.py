@@ -7,8 +7,8 @@ import math
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from bench.domains.base import Domain, gauss_legendre_panels
+from lapbench.config import ConfigError, positive
+from lapbench.domains.base import Domain, gauss_legendre_panels
 
 __all__ = ["Disk", "Annulus", "polar"]
 

@@ -6,8 +6,8 @@ import math
 
 import numpy as np
 
-from bench.config import ConfigError
-from bench.domains.base import gauss_legendre_panels
+from lapbench.config import ConfigError
+from lapbench.domains.base import gauss_legendre_panels
 
 __all__ = ["triangle_rule", "ear_clip"]
 

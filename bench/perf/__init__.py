@@ -1,1 +1,1 @@
-"""Benchmarks (not tests): `python -m bench.perf.<name>`; each prints and writes results/perf/<name>.json."""
+"""Benchmarks (not tests): `python -m lapbench.perf.<name>`; each prints and writes results/perf/<name>.json."""

@@ -1,4 +1,4 @@
-"""Finite-element performance: `python -m bench.perf.fem_scaling [--quick] [--max-level L]`.
+"""Finite-element performance: `python -m lapbench.perf.fem_scaling [--quick] [--max-level L]`.
 
 Measures, on this machine, 1 thread, best of 3 runs up to level 8, the `fem_p1` solver on the L-shape corner problem under
 uniform refinement (levels 4 .. 10: about 500 to 2 million unknowns), through the solver's own
@@ -26,9 +26,9 @@ FIT_MIN_DOFS = 1e4   # below this, fixed per-call overheads dominate and bend th
 
 
 def run_level(problem, eval_set, level: int, method: str) -> dict:
-    from bench.metrics import solution_errors
-    from solvers.base import RunContext
-    from solvers.fem import FEMP1
+    from lapbench.metrics import solution_errors
+    from lapbench.solvers.base import RunContext
+    from lapbench.solvers.fem import FEMP1
 
     ctx = RunContext()
     t0 = time.perf_counter()
@@ -57,7 +57,7 @@ def main(argv=None):
     from threadpoolctl import threadpool_limits
     from tqdm import tqdm
 
-    from bench.problems import make_problem
+    from lapbench.problems import make_problem
 
     problem = make_problem({"name": "lshape", "eval_level": 24})
     eval_set = problem.eval_set(0)

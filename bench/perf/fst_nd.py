@@ -1,4 +1,4 @@
-"""Sine-transform solvers in d dimensions: `python -m bench.perf.fst_nd [--quick]`.
+"""Sine-transform solvers in d dimensions: `python -m lapbench.perf.fst_nd [--quick]`.
 
 Measures, in one run on this machine (1 thread, medians of alternating blocks):
 1. fst5 and fst9 setup + solve in d = 3 at 255^3 unknowns (data on the grid, boundary folded on
@@ -28,9 +28,9 @@ def fst_against_dst(solver_name: str, problem_name: str, dim: int, m: int, block
     `problem_name`, and the median of two bare dstn calls on an m^d array (alternating blocks)."""
     import scipy.fft
 
-    from bench.problems import make_problem
-    from solvers import SOLVERS
-    from solvers.base import RunContext
+    from lapbench.problems import make_problem
+    from lapbench.solvers import SOLVERS
+    from lapbench.solvers.base import RunContext
 
     prob = make_problem({"name": problem_name, "dim": dim}).public()
     solver = SOLVERS[solver_name](n=m + 1)

@@ -1,4 +1,4 @@
-"""What the harness costs: `python -m bench.perf.harness [--quick]`.
+"""What the harness costs: `python -m lapbench.perf.harness [--quick]`.
 
 Measures, in one run on this machine:
 1. fst5 setup + solve at 2047 x 2047 unknowns (the whole timed part of a case: data evaluated
@@ -31,9 +31,9 @@ def fst_against_dst(m: int, blocks: int) -> dict:
     """Median fst5 setup + solve and median of two bare dstn calls, measured in alternating blocks."""
     import scipy.fft
 
-    from bench.problems import make_problem
-    from solvers import SOLVERS
-    from solvers.base import RunContext
+    from lapbench.problems import make_problem
+    from lapbench.solvers import SOLVERS
+    from lapbench.solvers.base import RunContext
 
     prob = make_problem({"name": "sine"}).public()
     solver = SOLVERS["fst5"](n=m + 1)   # m unknowns per direction

@@ -1,7 +1,7 @@
-"""PINN performance: `python -m bench.perf.pinn_step [--quick] [--budget SECONDS]`.
+"""PINN performance: `python -m lapbench.perf.pinn_step [--quick] [--budget SECONDS]`.
 
 Measures, in one run on this machine (best of repeats):
-1. the Laplacian strategies of `solvers.pinn.model.Network.derivatives` (forward propagation,
+1. the Laplacian strategies of `lapbench.solvers.pinn.model.Network.derivatives` (forward propagation,
    nested torch.autograd.grad, torch.func) per Adam step, 2 500 points, 4 x 50 tanh network,
    1 thread, float32 and float64, with their agreement (the default must be the fastest
    correct one);
@@ -12,7 +12,7 @@ Measures, in one run on this machine (best of repeats):
    stacked matrix products, tanh and Adam; see `step_ratio`);
 3. time to relative L2 error 1e-3 and the best error within the training budget for the
    `pinn_hard` preset on sin(pi x) sin(pi y), next to the classical solvers' time to the same
-   error, all through `bench.run.run_case` (forked, pinned, timed as in any sweep);
+   error, all through `lapbench.run.run_case` (forked, pinned, timed as in any sweep);
 4. the step cost against the dimension d (DIMS): one Adam step of the strong-form residual loss
    with the forward Laplacian (d + 2 streams), nested autograd (d backward passes), the
    coordinate-sampled forward Laplacian with k = SAMPLED_K coordinates (k + 2 streams, Hu et al.
@@ -51,7 +51,7 @@ def _best_ms(fn, repeats: int, inner: int) -> float:
 def laplacian_strategies(repeats: int) -> list[dict]:
     import torch
 
-    from solvers.pinn.model import Network
+    from lapbench.solvers.pinn.model import Network
 
     torch.set_num_threads(1)
     rows = []
@@ -108,11 +108,11 @@ def step_ratio(repeats: int) -> list[dict]:
 
     import torch
 
-    from bench.problems import make_problem
-    from solvers.pinn.losses import Loss
-    from solvers.pinn.model import Network
-    from solvers.pinn.runtime import retain_freed_memory
-    from solvers.pinn.losses import Collocation
+    from lapbench.problems import make_problem
+    from lapbench.solvers.pinn.losses import Loss
+    from lapbench.solvers.pinn.model import Network
+    from lapbench.solvers.pinn.runtime import retain_freed_memory
+    from lapbench.solvers.pinn.losses import Collocation
 
     retain_freed_memory()                     # as the PINN solver does in its case process
     prob = make_problem({"name": "sine"}).public()
@@ -176,7 +176,7 @@ def step_ratio(repeats: int) -> list[dict]:
 
 
 def time_to_tolerance(budget: float, tol: float = 1e-3) -> dict:
-    from bench.run import Case, run_case
+    from lapbench.run import Case, run_case
 
     out = {"problem": "sine (k = l = 1)", "tolerance": tol, "train_budget_s": budget}
     with tempfile.TemporaryDirectory() as tmp:
@@ -216,9 +216,9 @@ def step_against_dimension(repeats: int) -> list[dict]:
     """ms per Adam step of the residual loss in d dimensions (part 4 of the module docstring)."""
     import torch
 
-    from solvers.pinn.losses import Batch, Loss
-    from solvers.pinn.model import Network
-    from solvers.pinn.sampling import PointData
+    from lapbench.solvers.pinn.losses import Batch, Loss
+    from lapbench.solvers.pinn.model import Network
+    from lapbench.solvers.pinn.sampling import PointData
 
     torch.set_num_threads(1)
     rows = []
@@ -275,7 +275,7 @@ def main(argv=None):
 
     import torch
 
-    from solvers.pinn import PINN
+    from lapbench.solvers.pinn import PINN
 
     PINN.preload()
     path = Path("results/perf/pinn_step.json")

@@ -1,4 +1,4 @@
-"""Pixel-mask solver performance: `python -m bench.perf.pixel_scaling [--quick]`.
+"""Pixel-mask solver performance: `python -m lapbench.perf.pixel_scaling [--quick]`.
 
 A 1-megapixel mask (1024 x 1024 pixels; the region: scikit-image's seeded binary blobs at
 volume fraction 0.85, so one large region with islands and bays) solved at pixel resolution by
@@ -24,20 +24,20 @@ import numpy as np
 def _mask(pixels: int):
     from skimage.data import binary_blobs
 
-    from bench.domains import Mask
+    from lapbench.domains import Mask
 
     data = binary_blobs(length=pixels, blob_size_fraction=0.1, volume_fraction=0.85, rng=0)
     return Mask(data=data)
 
 
 def _cubic():
-    from bench.fields import Field
+    from lapbench.fields import Field
 
     return Field(lambda x, y: x ** 3 - 3 * x * y ** 2 + 0.5 * (x ** 2 - y ** 2) + x * y + y)
 
 
 def run_case(solver, problem, exact, repeats: int) -> dict:
-    from solvers.base import RunContext
+    from lapbench.solvers.base import RunContext
 
     t_setup, t_solve = [], []
     for _ in range(repeats):
@@ -59,7 +59,7 @@ def colamd_direct(mask, u) -> dict:
 
     import scipy.sparse.linalg as spla
 
-    from solvers.pixel import PixelGrid, five_point
+    from lapbench.solvers.pixel import PixelGrid, five_point
 
     grid = PixelGrid(mask, 1)
     A, (brow, bi, bj) = five_point(grid)
@@ -79,9 +79,9 @@ def main(argv=None):
     args = ap.parse_args(argv)
     from threadpoolctl import threadpool_limits
 
-    from bench.domains import Rectangle
-    from bench.problems import Problem
-    from solvers import SOLVERS
+    from lapbench.domains import Rectangle
+    from lapbench.problems import Problem
+    from lapbench.solvers import SOLVERS
 
     pixels = 256 if args.quick else 1024
     repeats = 3 if args.quick else 1

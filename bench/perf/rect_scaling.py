@@ -1,9 +1,9 @@
-"""Rectangle solver performance: `python -m bench.perf.rect_scaling [--quick]`.
+"""Rectangle solver performance: `python -m lapbench.perf.rect_scaling [--quick]`.
 
 Measures, in one run on this machine (medians of repeats, 1 thread unless --threads), the
 fitted exponent of AMG-CG (fd5, linear_solver=amg) solve time against N from 256^2 to 2048^2
 (target: at most 1.15), next to SuperLU with minimum-degree ordering. The sine-transform solver
-against bare DSTs and the harness's cost per case: `python -m bench.perf.harness`.
+against bare DSTs and the harness's cost per case: `python -m lapbench.perf.harness`.
 Writes results/perf/rect_scaling.json.
 """
 from __future__ import annotations
@@ -28,9 +28,9 @@ def median_time(fn, repeats):
 
 
 def amg_scaling(ns, repeats: int) -> dict:
-    from bench.problems import make_problem
-    from solvers import SOLVERS
-    from solvers.base import RunContext
+    from lapbench.problems import make_problem
+    from lapbench.solvers import SOLVERS
+    from lapbench.solvers.base import RunContext
 
     prob = make_problem({"name": "sine"}).public()
     rows = []

@@ -1,6 +1,6 @@
-"""Flat-torus enumeration cost: `python -m bench.perf.torus [--max-norm M]`.
+"""Flat-torus enumeration cost: `python -m lapbench.perf.torus [--max-norm M]`.
 
-Times `bench.lattice.torus_spectrum` (vectorised Fincke-Pohst over the dual lattice, exact int64
+Times `lapbench.lattice.torus_spectrum` (vectorised Fincke-Pohst over the dual lattice, exact int64
 norms) for E_8 and Milnor's pair E_8 + E_8, D_16^+ at |w|^2 <= 2, 4, 6 (and 8 for E_8), best of 3
 runs (1 for the largest), 1 thread, and reports the vectors enumerated per second beside the
 theta-series count each must reach (240 sigma_3(m) for E_8, 480 sigma_7(m) for the pair), and the
@@ -26,7 +26,7 @@ def main(argv=None):
     args = ap.parse_args(argv)
     from threadpoolctl import threadpool_limits
 
-    from bench.lattice import load_torus, torus_spectrum
+    from lapbench.lattice import load_torus, torus_spectrum
 
     cases = [("e8", m, 240, 3) for m in (2, 4, 6, 8)]
     cases += [(n, m, 480, 7) for n in ("e8e8", "d16plus") for m in range(2, args.max_norm + 1, 2)]
@@ -51,7 +51,7 @@ def main(argv=None):
         # the enumeration with and without the LLL reduction that torus_spectrum applies
         import numpy as np
 
-        from bench.lattice import d_plus_basis, gram, inverse, lll_reduce, short_vector_counts
+        from lapbench.lattice import d_plus_basis, gram, inverse, lll_reduce, short_vector_counts
 
         rng = np.random.default_rng(1)
         U = np.eye(8, dtype=np.int64)

@@ -3,11 +3,11 @@ from __future__ import annotations
 
 from typing import Callable
 
-from bench.config import ConfigError, build_params
-from bench.problems import curved, custom, eigen, highdim, imaging, manufactured, rectangle
-from bench.problems.base import MAX_EVAL_LEVEL, BoundaryDataError, Problem
-from bench.problems.eigen import EigenProblem
-from bench.problems.rectangle import plate_series, plate_terms
+from lapbench.config import ConfigError, build_params
+from lapbench.problems import curved, custom, eigen, highdim, imaging, manufactured, rectangle
+from lapbench.problems.base import MAX_EVAL_LEVEL, BoundaryDataError, Problem
+from lapbench.problems.eigen import EigenProblem
+from lapbench.problems.rectangle import plate_series, plate_terms
 
 __all__ = ["Problem", "EigenProblem", "PROBLEMS", "make_problem", "BoundaryDataError", "MAX_EVAL_LEVEL",
            "plate_series", "plate_terms"]

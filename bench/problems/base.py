@@ -14,8 +14,8 @@ from typing import Callable, Literal
 
 import numpy as np
 
-from bench.config import ConfigError
-from bench.domains import Domain, Rectangle, make_domain
+from lapbench.config import ConfigError
+from lapbench.domains import Domain, Rectangle, make_domain
 
 __all__ = ["Problem", "BoundaryDataError", "MAX_EVAL_LEVEL", "rectangle_domain"]
 
@@ -93,8 +93,8 @@ class Problem:
         return int(getattr(self.domain, "dim", 2))
 
     def f_on_grid(self, *axes: np.ndarray) -> np.ndarray:
-        """f on the tensor grid axes[0] x ... x axes[d-1] (broadcast where f is a `bench.fields.Field`)."""
-        from bench.fields import on_grid
+        """f on the tensor grid axes[0] x ... x axes[d-1] (broadcast where f is a `lapbench.fields.Field`)."""
+        from lapbench.fields import on_grid
 
         if self.f is None:
             return np.zeros(tuple(len(a) for a in axes))

@@ -7,9 +7,9 @@ import math
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from bench.domains import Annulus, Disk, lshape, make_domain
-from bench.problems.base import Problem
+from lapbench.config import ConfigError, positive
+from lapbench.domains import Annulus, Disk, lshape, make_domain
+from lapbench.problems.base import Problem
 
 __all__ = ["lshape_corner", "disk_harmonic", "annulus_poisson", "CATALOGUE"]
 

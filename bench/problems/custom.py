@@ -9,7 +9,7 @@ config folder (``--config-dir``), without code in lapbench's tree::
     source: null                             # f = -Laplace(u): expression or {_target_: ...}
     boundary: null                           # g = u on the boundary: expression or {_target_: ...}
 
-Each of `exact`, `source` and `boundary` is either a safe expression in x, y (bench.expr: parsed,
+Each of `exact`, `source` and `boundary` is either a safe expression in x, y (lapbench.expr: parsed,
 never evaluated as Python) or an importable vectorised callable ``{_target_: pkg.mod.func,
 <keyword>: <value>, ...}`` taking points of shape (m, 2) and returning m values. With an
 exact solution, a given source and boundary are checked against it (fourth-order finite
@@ -17,7 +17,7 @@ differences of the exact solution, boundary values at sampled boundary points), 
 is a config error, not a silently wrong benchmark.
 
 Without an exact solution (`source` and `boundary` only) the harness computes a reference: the
-most accurate registered classical solver that supports the problem (`bench.problems.reference.REFERENCE_SOLVERS`) at a
+most accurate registered classical solver that supports the problem (`lapbench.problems.reference.REFERENCE_SOLVERS`) at a
 fine resolution, with an error estimate from the same solver at a half and a quarter of that
 resolution: ``|u_fine - u_half| / (2^p - 1)`` (Richardson's estimate) with p the smaller of the
 method's order and the observed order, so that singular data do not get an optimistic one. The
@@ -35,11 +35,11 @@ import math
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from bench.domains import make_domain
-from bench.numerics import fd_laplacian
-from bench.problems.base import Problem
-from bench.problems.reference import ReferenceConfig, attach_reference
+from lapbench.config import ConfigError, positive
+from lapbench.domains import make_domain
+from lapbench.numerics import fd_laplacian
+from lapbench.problems.base import Problem
+from lapbench.problems.reference import ReferenceConfig, attach_reference
 
 __all__ = ["CustomParams", "custom", "CATALOGUE"]
 
@@ -89,7 +89,7 @@ def _from_expression(text: str, field: str):
     """(vectorised function of points, sympy expression) for a safe expression in x, y."""
     import sympy as sp
 
-    from bench.expr import X, Y, parse
+    from lapbench.expr import X, Y, parse
 
     e = parse(text, field)
     fn = sp.lambdify((X, Y), e, modules="numpy")
@@ -103,7 +103,7 @@ def _from_expression(text: str, field: str):
 
 def _from_callable(spec: dict, field: str, probe: np.ndarray):
     """A user's vectorised callable ``{_target_: pkg.mod.func, **keywords}``, probed once."""
-    from bench.config import import_object
+    from lapbench.config import import_object
 
     spec = dict(spec)
     target = spec.pop("_target_", None)
@@ -211,7 +211,7 @@ def custom(p: CustomParams) -> Problem:
     if f is None and u_expr is not None:
         import sympy as sp
 
-        from bench.expr import X, Y
+        from lapbench.expr import X, Y
 
         f_expr = -(sp.diff(u_expr, X, 2) + sp.diff(u_expr, Y, 2))
         if sp.simplify(f_expr) != 0:

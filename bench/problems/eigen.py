@@ -29,10 +29,10 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from bench.domains import Disk, Polygon, Rectangle, lshape, make_domain
-from bench.problems.base import Problem
-from bench.problems.reference import ReferenceModes, computed_reference
+from lapbench.config import ConfigError, positive
+from lapbench.domains import Disk, Polygon, Rectangle, lshape, make_domain
+from lapbench.problems.base import Problem
+from lapbench.problems.reference import ReferenceModes, computed_reference
 
 __all__ = ["EigenProblem", "rectangle_spectrum", "disk_spectrum", "LSHAPE_LAMBDA1", "MAX_K", "CATALOGUE"]
 

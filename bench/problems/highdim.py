@@ -21,12 +21,12 @@ from typing import Literal
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from bench.domains import unit_ball, unit_box
-from bench.domains.box import MAX_DIM
-from bench.fields import Field
-from bench.problems.base import Problem
-from bench.problems.eigen import CLOSED_FORM_RTOL, EigenProblem, _check_k, _complete_cluster
+from lapbench.config import ConfigError, positive
+from lapbench.domains import unit_ball, unit_box
+from lapbench.domains.box import MAX_DIM
+from lapbench.fields import Field
+from lapbench.problems.base import Problem
+from lapbench.problems.eigen import CLOSED_FORM_RTOL, EigenProblem, _check_k, _complete_cluster
 
 __all__ = ["nd_gauss", "nd_harmonic", "nd_pole", "nd_waves", "eigen_box", "eigen_ball", "box_spectrum",
            "ball_spectrum", "bessel_zeros", "harmonic_multiplicity", "harmonic_basis", "CATALOGUE"]

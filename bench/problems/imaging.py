@@ -1,18 +1,18 @@
 """Problems on pixel-mask regions: exact solutions, harmonic inpainting, seamless cloning.
 
-The region is a `bench.domains.Mask` (the union of its True pixels). For the image problems
+The region is a `lapbench.domains.Mask` (the union of its True pixels). For the image problems
 the photograph is placed with its pixel centres on the mask's pixel corners: the image has
 (rows + 1) x (cols + 1) pixels for a mask of rows x cols pixels (frame included). The pixel
 corners strictly inside the region are the unknown pixels (the hole); those on its boundary
 are known pixels and carry the Dirichlet data. Data between nodes are bilinear
-(`bench.images.LatticeField`), so every method sees the same continuous problem, and at
+(`lapbench.images.LatticeField`), so every method sees the same continuous problem, and at
 pixel resolution the 5-point scheme is exactly the discrete image-editing system.
 
 Image problems have no closed-form solution: their reference is the discrete 5-point solution
-at pixel resolution computed by a direct solver (`solvers.pixel.pixel_solve`, SuperLU), and the
+at pixel resolution computed by a direct solver (`lapbench.solvers.pixel.pixel_solve`, SuperLU), and the
 errors of a record are against that discrete reference (``reference`` in the problem's params
 and source says so). Inpainting records also report the PSNR against the original pixels of
-the hole (`bench.image_metrics`), a different question (how well a harmonic fill restores the
+the hole (`lapbench.image_metrics`), a different question (how well a harmonic fill restores the
 photograph) reported separately.
 """
 from __future__ import annotations
@@ -22,11 +22,11 @@ import math
 
 import numpy as np
 
-from bench.config import ConfigError, one_of
-from bench.domains import Mask, make_domain
-from bench.fields import Field
-from bench.images import CHANNELS, IMAGES, LatticeField, check_channel, image_to_lattice, load_image
-from bench.problems.base import Problem
+from lapbench.config import ConfigError, one_of
+from lapbench.domains import Mask, make_domain
+from lapbench.fields import Field
+from lapbench.images import CHANNELS, IMAGES, LatticeField, check_channel, image_to_lattice, load_image
+from lapbench.problems.base import Problem
 
 __all__ = ["ImageProblem", "mask_exact", "inpaint", "clone", "CATALOGUE", "DISCRETE_REFERENCE"]
 
@@ -117,7 +117,7 @@ def mask_exact(p: MaskExactParams) -> Problem:
 
 def _image_problem(name, kind, d: Mask, V: np.ndarray, f, params: dict, source: str, truth: bool):
     """Common part: boundary data from the lattice V, the discrete reference, the hole."""
-    from solvers.pixel import PixelInterpolant, pixel_solve
+    from lapbench.solvers.pixel import PixelInterpolant, pixel_solve
 
     h = d.h
     inside = d.interior_corners

@@ -3,9 +3,9 @@ from __future__ import annotations
 
 import dataclasses
 
-from bench.config import positive
-from bench.domains import make_domain
-from bench.problems.base import Problem
+from lapbench.config import positive
+from lapbench.domains import make_domain
+from lapbench.problems.base import Problem
 
 __all__ = ["expr", "CATALOGUE"]
 
@@ -24,9 +24,9 @@ def expr(p: ExprParams) -> Problem:
     """Manufactured solution from an expression string for u(x, y) on any domain.
 
     sympy derives f = -Laplace(u) and the Dirichlet data g = u; the string is parsed safely
-    (bench.expr). Source: method of manufactured solutions [common practice].
+    (lapbench.expr). Source: method of manufactured solutions [common practice].
     """
-    from bench.expr import manufactured
+    from lapbench.expr import manufactured
 
     m = manufactured(p.u, field="problem.u")
     d = make_domain(p.domain)

@@ -7,10 +7,10 @@ import math
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from bench.domains import Rectangle
-from bench.fields import Field
-from bench.problems.base import MAX_EVAL_LEVEL, Problem, rectangle_domain
+from lapbench.config import ConfigError, positive
+from lapbench.domains import Rectangle
+from lapbench.fields import Field
+from lapbench.problems.base import MAX_EVAL_LEVEL, Problem, rectangle_domain
 
 __all__ = ["sine", "harmonic", "plate", "peak", "wavefront", "layer", "plate_series", "plate_terms", "CATALOGUE"]
 
@@ -237,7 +237,7 @@ def wavefront(p: WavefrontParams) -> Problem:
     350-364 (sets (alpha, xc, yc, r0): (20, -0.05, -0.05, 0.7), (1000, -0.05, -0.05, 0.7),
     (1000, 1.5, 0.25, 0.92), (50, 0.5, 0.5, 0.25)).
     """
-    from bench.expr import manufactured
+    from lapbench.expr import manufactured
 
     m = manufactured(f"atan({p.alpha!r}*(sqrt((x-({p.xc!r}))**2 + (y-({p.yc!r}))**2) - {p.r0!r}))")
     level = int(min(MAX_EVAL_LEVEL, max(48, 2 * p.alpha)))
@@ -265,7 +265,7 @@ def layer(p: LayerParams) -> Problem:
     A manufactured Poisson counterpart of the boundary-layer problem in Mitchell's collection
     (Appl. Math. Comput. 220 (2013) 350-364), where that problem is convection-diffusion.
     """
-    from bench.expr import manufactured
+    from lapbench.expr import manufactured
 
     e = repr(p.eps)
     m = manufactured(f"(1 - exp(-(1-x)/{e}))*(1 - exp(-(1-y)/{e}))*cos(pi*(x+y))")

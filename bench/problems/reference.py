@@ -26,7 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.config import ConfigError
+from lapbench.config import ConfigError
 
 __all__ = ["richardson", "richardson_estimate", "computed_reference", "ReferenceModes", "attach_reference",
            "ReferenceConfig", "REFERENCE_SOLVERS", "REFERENCE_VERSION"]
@@ -82,9 +82,9 @@ def richardson(values: np.ndarray, p: int) -> tuple[float, float, float]:
 
 
 def _mesh_levels(domain, triangles: int, levels: int):
-    """Nested uniform refinements of the polygon's coarse triangulation (solvers.fem.build_mesh);
+    """Nested uniform refinements of the polygon's coarse triangulation (lapbench.solvers.fem.build_mesh);
     the finest has at least `triangles` triangles, and the coarsest is refined at least once."""
-    from solvers.fem import build_mesh
+    from lapbench.solvers.fem import build_mesh
 
     T0 = build_mesh(domain, 0).t.shape[1]
     top = max(levels, int(math.ceil(math.log(max(triangles / T0, 1.0), 4))))
@@ -135,7 +135,7 @@ def _compute_reference(domain, recipe: dict) -> dict:
 
     from tqdm import tqdm
 
-    from solvers.fem import fem_eigen
+    from lapbench.solvers.fem import fem_eigen
 
     order, k = int(recipe["order"]), int(recipe["k"])
     meshes = _mesh_levels(domain, int(recipe["triangles"]), int(recipe["levels"]))
@@ -165,7 +165,7 @@ def _hmax(mesh) -> float:
 
 
 class ReferenceModes:
-    """Modes of a computed reference: the finest-level FEM functions (solvers.fem.FEMFunction)."""
+    """Modes of a computed reference: the finest-level FEM functions (lapbench.solvers.fem.FEMFunction)."""
 
     def __init__(self, p, t, order, V, n):
         self.p, self.t, self.order, self.V = np.asarray(p), np.asarray(t), int(order), np.asarray(V)[:, :n]
@@ -175,7 +175,7 @@ class ReferenceModes:
         if self._fields is None:
             from skfem import Basis, ElementTriP1, ElementTriP2, MeshTri1
 
-            from solvers.fem import FEMFunction
+            from lapbench.solvers.fem import FEMFunction
 
             basis = Basis(MeshTri1(self.p, self.t), {1: ElementTriP1, 2: ElementTriP2}[self.order]())
             self._fields = [FEMFunction(basis, self.V[:, j]) for j in range(self.V.shape[1])]
@@ -186,7 +186,7 @@ class ReferenceModes:
 # -- fields of custom problems ---------------------------------------------------------------------
 def _reference_solver(problem, cfg: ReferenceConfig):
     """(solver class, option, fine value, order) of the reference solver for `problem`."""
-    from solvers import SOLVERS
+    from lapbench.solvers import SOLVERS
 
     table = {name: (opt, fine, order) for name, opt, fine, order in REFERENCE_SOLVERS}
     if cfg.solver is not None:
@@ -219,7 +219,7 @@ _REFERENCE_CACHE: dict[str, tuple] = {}
 def _computed_reference(key: str, problem, cfg: ReferenceConfig):
     """Coarse and fine runs of the reference solver (cached per problem config within a process:
     planning and the basic launcher's jobs build the same problem several times)."""
-    from solvers.base import Budget, RunContext
+    from lapbench.solvers.base import Budget, RunContext
 
     if key in _REFERENCE_CACHE:
         return _REFERENCE_CACHE[key]

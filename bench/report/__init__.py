@@ -1,13 +1,13 @@
 """The report stage: records -> comparison tables and figures under results/reports/<name>/."""
-from bench.report.figures import Figure, family_colours, make_figures
-from bench.report.frame import _load, metric_key, natural_key  # noqa: F401  (_load: records + frame)
-from bench.report.options import (FAIL_STATUSES, FAMILY_ORDER, FIGURE_KINDS, FORMATS, IMAGE_FORMATS,
+from lapbench.report.figures import Figure, family_colours, make_figures
+from lapbench.report.frame import _load, metric_key, natural_key  # noqa: F401  (_load: records + frame)
+from lapbench.report.options import (FAIL_STATUSES, FAMILY_ORDER, FIGURE_KINDS, FORMATS, IMAGE_FORMATS,
                                   LEARNED_FAMILIES, METRICS, NOT_REACHED, FieldOptions, FigureOptions,
                                   FitOptions, ReportConfig)
-from bench.report.rules import (accuracy_at_budget, best_errors, order_fits, pareto_front, run_points,
+from lapbench.report.rules import (accuracy_at_budget, best_errors, order_fits, pareto_front, run_points,
                                 seed_summary, speedup_table, status_counts, time_to_tolerance, upper_median)
-from bench.report.tables import Table, build_tables, results_table, runs_table
-from bench.report.writers import html_table, latex_table, latex_tabular, tex_escape, to_markdown, write_report
+from lapbench.report.tables import Table, build_tables, results_table, runs_table
+from lapbench.report.writers import html_table, latex_table, latex_tabular, tex_escape, to_markdown, write_report
 
 __all__ = ["ReportConfig", "FigureOptions", "FitOptions", "FieldOptions", "Table", "results_table", "runs_table",
            "to_markdown", "run_points", "pareto_front", "time_to_tolerance", "accuracy_at_budget",

@@ -3,13 +3,13 @@
 For every problem family (problem name) recorded at two or more dimensions, a row of panels, one
 per tolerance of the report: x the dimension d (``problem.params.dim``; the domain's length for
 records without it), y the method's time to the tolerance by the report's rule
-(`bench.report.rules.time_to_tolerance`: first checkpoint or final solution at or below the
+(`lapbench.report.rules.time_to_tolerance`: first checkpoint or final solution at or below the
 tolerance, best configuration, upper median over seeds), one line per method, learned methods
 dashed. A method that ran at some d but never reached the tolerance there is drawn as an open
 triangle on the panel's top edge ("not reached"). conf/suite/dimensions.yaml is the study.
 
 The builder takes the report's `Figure` type and save function as arguments, so that this module
-does not import `bench.report.figures` (which calls it).
+does not import `lapbench.report.figures` (which calls it).
 """
 from __future__ import annotations
 
@@ -17,9 +17,9 @@ import math
 
 import numpy as np
 
-from bench.report.options import _is_learned
-from bench.report.rules import time_to_tolerance
-from bench.report.style import _decade_label, _legend, _markers, method_colours
+from lapbench.report.options import _is_learned
+from lapbench.report.rules import time_to_tolerance
+from lapbench.report.style import _decade_label, _legend, _markers, method_colours
 
 __all__ = ["fig_dimensions", "record_dimension", "dimension_table"]
 

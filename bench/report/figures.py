@@ -19,12 +19,12 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.report.frame import _finite, _slug, metric_key, natural_key
-from bench.report.dimensions import fig_dimensions
-from bench.report.images import fig_images
-from bench.report.options import FAIL_STATUSES, _is_learned
-from bench.report.rules import best_errors, order_fits, pareto_front, run_points
-from bench.report.style import (_FRONT_STYLES, _RING_NOTE, MARKERS, _decade_label, _error_label,  # noqa: F401
+from lapbench.report.frame import _finite, _slug, metric_key, natural_key
+from lapbench.report.dimensions import fig_dimensions
+from lapbench.report.images import fig_images
+from lapbench.report.options import FAIL_STATUSES, _is_learned
+from lapbench.report.rules import best_errors, order_fits, pareto_front, run_points
+from lapbench.report.style import (_FRONT_STYLES, _RING_NOTE, MARKERS, _decade_label, _error_label,  # noqa: F401
                                 _legend, _loglog, _markers, _Overlap, _save, _scatter_methods, _staircase,
                                 _style, family_colours, method_colours)
 

@@ -10,16 +10,16 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.config import ConfigError
-from bench.records import resolution_label
-from bench.report.options import ReportConfig
+from lapbench.config import ConfigError
+from lapbench.records import resolution_label
+from lapbench.report.options import ReportConfig
 
 __all__ = ["metric_key", "natural_key"]
 
 
 def _load(cfg: ReportConfig):
     """Records matching the filters, and their DataFrame (row i = record i)."""
-    from bench.records import load_records, to_frame
+    from lapbench.records import load_records, to_frame
 
     for i, d in enumerate(cfg.results):
         if not Path(d).is_dir():

@@ -1,7 +1,7 @@
 """Report figures of the imaging problems: reconstructed images and error images.
 
 For one imaging problem (records whose metrics hold ``image.hole_values``, written by
-`bench.image_metrics`), the first row shows the input (the photograph with the hole blanked;
+`lapbench.image_metrics`), the first row shows the input (the photograph with the hole blanked;
 for cloning the target), the discrete reference (the 5-point solution at pixel resolution by a
 direct solve, what every error of these records is measured against) and each chosen method's
 reconstruction; the second row the original photograph (inpainting) or the guidance source
@@ -14,7 +14,7 @@ rebuilt from the record's problem config (the photographs are package data; the 
 recomputed, a direct solve of the hole's pixels) so that records store only the hole's values.
 
 The figure builder takes the report's `Figure` type and save function as arguments, so that
-this module does not import `bench.report.figures` (which calls it).
+this module does not import `lapbench.report.figures` (which calls it).
 """
 from __future__ import annotations
 
@@ -34,7 +34,7 @@ def is_image_record(rec) -> bool:
 
 def _picture(prob, values=None) -> np.ndarray:
     """The problem's photograph in image layout, with the hole set to `values` (NaN: blank)."""
-    from bench.images import lattice_to_image
+    from lapbench.images import lattice_to_image
 
     V = np.array(prob.image, dtype=float)
     I, J = prob.hole
@@ -43,7 +43,7 @@ def _picture(prob, values=None) -> np.ndarray:
 
 
 def _error_picture(prob, values) -> np.ndarray:
-    from bench.images import lattice_to_image
+    from lapbench.images import lattice_to_image
 
     E = np.full(prob.image.shape, np.nan)
     I, J = prob.hole
@@ -86,7 +86,7 @@ def fig_images(pid, recs, frame, cfg, folder, figure_type, save):
     import matplotlib.pyplot as plt
     from matplotlib.colors import TwoSlopeNorm
 
-    from bench.problems import make_problem
+    from lapbench.problems import make_problem
 
     rows = [i for i in frame.index[frame["problem_id"] == pid] if is_image_record(recs[i])]
     if not rows:
@@ -118,7 +118,7 @@ def fig_images(pid, recs, frame, cfg, folder, figure_type, save):
     axes[0, 1].set_title("discrete reference\n(5-point, direct)"
                          + (f"\nPSNR {ref_psnr:.1f} dB" if ref_psnr is not None else ""), fontsize=TITLE_SIZE)
     if is_clone:
-        from bench.images import load_image
+        from lapbench.images import load_image
 
         p = recs[chosen[0]]["problem"]["config"]
         src = load_image(p.get("source", "astronaut"), p.get("channel", "grey"), _picture(prob).shape)
@@ -168,7 +168,7 @@ def fig_images(pid, recs, frame, cfg, folder, figure_type, save):
         ax.set_xticks([])
         ax.set_yticks([])
         ax.grid(False)
-    from bench.report.frame import _slug
+    from lapbench.report.frame import _slug
 
     import hashlib
 

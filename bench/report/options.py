@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 
-from bench.config import ConfigError, in_range, one_of, positive
+from lapbench.config import ConfigError, in_range, one_of, positive
 
 __all__ = ["ReportConfig", "FigureOptions", "FitOptions", "FieldOptions", "FORMATS", "METRICS", "FIGURE_KINDS",
            "IMAGE_FORMATS", "LEARNED_FAMILIES", "FAIL_STATUSES", "NOT_REACHED", "FAMILY_ORDER"]

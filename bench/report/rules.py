@@ -45,8 +45,8 @@ import math
 
 import numpy as np
 
-from bench.report.frame import _finite, metric_key, natural_key
-from bench.report.options import FAIL_STATUSES, ReportConfig, _is_learned
+from lapbench.report.frame import _finite, metric_key, natural_key
+from lapbench.report.options import FAIL_STATUSES, ReportConfig, _is_learned
 
 __all__ = ["run_points", "pareto_front", "time_to_tolerance", "accuracy_at_budget", "speedup_table", "order_fits",
            "seed_summary", "status_counts", "upper_median", "best_errors", "EXPECTED_ORDER", "expected_order",

@@ -9,8 +9,8 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.report.frame import _metric_name
-from bench.report.options import FAMILY_ORDER
+from lapbench.report.frame import _metric_name
+from lapbench.report.options import FAMILY_ORDER
 
 __all__ = ["family_colours", "method_colours", "MARKERS"]
 

@@ -5,7 +5,7 @@ small table), one sentence a reader can quote, each classical method's expected 
 convergence order, and the problem statement (PDE, domain, exact solution or reference and its
 source). For the whole report: versions, git revision, CPU and threads, and the commands that
 reproduce it. Errors below a computed reference's own accuracy are shown as
-``< floor (reference accuracy)`` (bench.report.rules.reference_floor), never as a number.
+``< floor (reference accuracy)`` (lapbench.report.rules.reference_floor), never as a number.
 Everything is built from the rules' tables (time_to_tolerance, accuracy_at_budget, speedup_table,
 order_check); nothing is measured here.
 """
@@ -13,9 +13,9 @@ from __future__ import annotations
 
 import dataclasses
 
-from bench.report.frame import _finite, _metric_name, natural_key
-from bench.report.options import ReportConfig
-from bench.report.rules import floored, order_check, order_fits, problem_floors
+from lapbench.report.frame import _finite, _metric_name, natural_key
+from lapbench.report.options import ReportConfig
+from lapbench.report.rules import floored, order_check, order_fits, problem_floors
 
 __all__ = ["Summary", "build_summary", "problem_statement", "reproduce_commands"]
 
@@ -38,7 +38,7 @@ class Summary:
     metric: str = ""
 
     def to_markdown(self, to_markdown) -> str:
-        """Markdown, tables rendered by `to_markdown` (bench.report.writers.to_markdown, which sits
+        """Markdown, tables rendered by `to_markdown` (lapbench.report.writers.to_markdown, which sits
         above this module)."""
         lines = ["## Summary", ""]
         for pid, s in self.sentences.items():
@@ -160,7 +160,7 @@ def _sentence(pid, tt, sp, floor, metric: str, cfg: ReportConfig) -> str:
 
 def build_summary(recs, frame, cfg: ReportConfig, tt, ab, sp) -> Summary:
     """The summary from the report's time-to-tolerance (`tt`), accuracy-at-budget (`ab`) and
-    speed-up (`sp`) tables (bench.report.rules)."""
+    speed-up (`sp`) tables (lapbench.report.rules)."""
     import pandas as pd
 
     metric = cfg.metric if not (frame["kind"] == "eigen").all() else (cfg.eigen_metric or cfg.metric)

@@ -5,11 +5,11 @@ from __future__ import annotations
 import dataclasses
 import math
 
-from bench.report.frame import _finite, _metric_name, _slug, natural_key
-from bench.report.options import FAIL_STATUSES, FAMILY_ORDER, NOT_REACHED, ReportConfig
-from bench.report.rules import (accuracy_at_budget, best_errors, floored, order_fits, problem_floors, run_points,
+from lapbench.report.frame import _finite, _metric_name, _slug, natural_key
+from lapbench.report.options import FAIL_STATUSES, FAMILY_ORDER, NOT_REACHED, ReportConfig
+from lapbench.report.rules import (accuracy_at_budget, best_errors, floored, order_fits, problem_floors, run_points,
                                 seed_summary, speedup_table, status_counts, time_to_tolerance)
-from bench.report.summary import build_summary
+from lapbench.report.summary import build_summary
 
 __all__ = ["Table", "results_table", "runs_table", "build_tables"]
 
@@ -52,7 +52,7 @@ class Table:
     data: object        # pandas DataFrame, numeric
     display: object     # pandas DataFrame of strings
     problem: str | None = None
-    summary: object = None   # the report's summary (bench.report.summary.Summary) on the `summary` table
+    summary: object = None   # the report's summary (lapbench.report.summary.Summary) on the `summary` table
 
 
 def _fmt(v, spec=".3g"):
@@ -127,7 +127,7 @@ def build_tables(recs, frame, cfg: ReportConfig) -> list[Table]:
     sp = speedup_table(recs, frame, cfg.tolerances, cfg.metric, points=pts)
     metric = _metric_name(cfg)
     floors = problem_floors(recs, frame, cfg.metric, cfg.eigen_metric)   # computed references' accuracy
-    summ = build_summary(recs, frame, cfg, tt, ab, sp)      # the answers first (bench.report.summary)
+    summ = build_summary(recs, frame, cfg, tt, ab, sp)      # the answers first (lapbench.report.summary)
     tables.append(Table("summary", "Summary", "Per problem the fastest method to each tolerance and the most "
                         f"accurate within each time budget ({summ.metric}; method time).", summ.table, summ.table,
                         summary=summ))

@@ -13,10 +13,10 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.report.figures import make_figures
-from bench.report.frame import _finite, _load, _metric_name, _slug
-from bench.report.options import ReportConfig
-from bench.report.tables import Table, _cell_spec, _fmt, build_tables, results_table, runs_table
+from lapbench.report.figures import make_figures
+from lapbench.report.frame import _finite, _load, _metric_name, _slug
+from lapbench.report.options import ReportConfig
+from lapbench.report.tables import Table, _cell_spec, _fmt, build_tables, results_table, runs_table
 
 __all__ = ["write_report", "to_markdown", "latex_tabular", "latex_table", "html_table", "tex_escape"]
 
@@ -236,7 +236,7 @@ def write_report(cfg: ReportConfig, out_root: str | Path = "results/reports") ->
 
 
 def _summary(tables):
-    """The report's summary (bench.report.summary), carried by the `summary` table; None without."""
+    """The report's summary (lapbench.report.summary), carried by the `summary` table; None without."""
     return next((t.summary for t in tables if t.key == "summary"), None)
 
 

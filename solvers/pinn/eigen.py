@@ -1,6 +1,6 @@
 """A neural-network eigen-solver for -Laplace(u) = lambda u, u = 0 on the boundary.
 
-One network N_j per mode (solvers.pinn.model.Network), hard Dirichlet condition
+One network N_j per mode (lapbench.solvers.pinn.model.Network), hard Dirichlet condition
 u_j = phi N_j with the domain's normalised distance function phi (Sukumar & Srivastava, CMAME
 389, 2022), so every u_j vanishes on the boundary exactly; integrals by the domain's quadrature
 rule. Two strategies (`strategy`):
@@ -28,7 +28,7 @@ rule. Two strategies (`strategy`):
   w > 1. Each mode gets the remaining time divided by the modes still to train. It is the more
   accurate for lambda_1 alone, and stalls on higher modes.
 
-Both train through the family's driver (`solvers.pinn.train.train`: Adam, then L-BFGS with a
+Both train through the family's driver (`lapbench.solvers.pinn.train.train`: Adam, then L-BFGS with a
 strong-Wolfe line search, restarted here with a fresh curvature history when it stops early while
 still gaining: LBFGS_RESTARTS), and end with a Rayleigh-Ritz
 projection onto span{u_1..u_k} with an accurate quadrature of the domain (stiffness and mass
@@ -47,12 +47,12 @@ import dataclasses
 
 import numpy as np
 
-from bench.config import ConfigError, one_of, positive
-from solvers.base import Diverged, Solver, Tags
-from solvers.eigen import eigen_solution
-from solvers.pinn.options import (ACTIVATIONS, MAX_DEPTH, MAX_DIM, MAX_WIDTH, PRECISIONS, STRATEGIES,
+from lapbench.config import ConfigError, one_of, positive
+from lapbench.solvers.base import Diverged, Solver, Tags
+from lapbench.solvers.eigen import eigen_solution
+from lapbench.solvers.pinn.options import (ACTIVATIONS, MAX_DEPTH, MAX_DIM, MAX_WIDTH, PRECISIONS, STRATEGIES,
                                   check_schedule)
-from solvers.pinn.runtime import preload_torch
+from lapbench.solvers.pinn.runtime import preload_torch
 
 __all__ = ["PINNEigen", "PINNEigenParams", "STRATEGIES"]
 
@@ -146,8 +146,8 @@ class PINNEigen(Solver):
     def _solve(self, problem, budget, ctx):
         import torch
 
-        from solvers.pinn.model import Network, torch_dtype
-        from solvers.pinn.train import Objective, Schedule, train
+        from lapbench.solvers.pinn.model import Network, torch_dtype
+        from lapbench.solvers.pinn.train import Objective, Schedule, train
 
         p = self.params
         k = int(problem.n_eigs)

@@ -29,7 +29,7 @@ deterministic objective (a chunked run whose subset changed between chunks diver
 nd_harmonic, d = 5, k = 2), so `PINNObjective.before_lbfgs` switches to all d coordinates.
 
 `Collocation` holds the current point sets; `PINNObjective` is the loss on them in the form the
-training driver (`solvers.pinn.train`) takes, with the point resampling and residual-based
+training driver (`lapbench.solvers.pinn.train`) takes, with the point resampling and residual-based
 refinement between Adam steps.
 """
 from __future__ import annotations
@@ -39,8 +39,8 @@ import dataclasses
 import numpy as np
 import torch
 
-from solvers.pinn.options import BOUNDARIES, LOSSES
-from solvers.pinn.sampling import PointData, boundary_points, interior_points, point_data
+from lapbench.solvers.pinn.options import BOUNDARIES, LOSSES
+from lapbench.solvers.pinn.sampling import PointData, boundary_points, interior_points, point_data
 
 __all__ = ["Batch", "Boundary", "Collocation", "Loss", "PINNObjective", "LOSSES", "BOUNDARIES"]
 
@@ -176,7 +176,7 @@ class Collocation:
 
 @dataclasses.dataclass
 class PINNObjective:
-    """The PINN loss on the current collocation set, as `solvers.pinn.train.train` takes it.
+    """The PINN loss on the current collocation set, as `lapbench.solvers.pinn.train.train` takes it.
 
     ``resample_every`` / ``rar_every``: fresh points, or a residual-based refinement adding
     ``rar_add`` of ``rar_candidates`` points, every k Adam steps (0: never; none after the last).

@@ -12,10 +12,10 @@ Laplacian", Nature Machine Intelligence 6 (2024) [memory for the venue]). For a 
 so the gradient and Laplacian of the output cost d + 1 extra rows in each matrix product. The
 d + 2 streams are stacked in one (d + 2, n, width) tensor, so each layer is one matrix product,
 and the activation of the streams is one autograd node with a hand-derived backward
-(`solvers.pinn.streams`). The nested autograd and torch.func routes are kept for cross-checking
+(`lapbench.solvers.pinn.streams`). The nested autograd and torch.func routes are kept for cross-checking
 and for the benchmark in ``bench/perf/pinn_step.py``, which measures all three on this machine.
 
-This module imports torch at import time; ``solvers.pinn`` imports it only inside the solver.
+This module imports torch at import time; ``lapbench.solvers.pinn`` imports it only inside the solver.
 """
 from __future__ import annotations
 
@@ -25,13 +25,13 @@ import warnings
 import torch
 from torch import nn
 
-from solvers.pinn.options import ACTIVATIONS, LAPLACIAN_METHODS, PRECISIONS
-from solvers.pinn.streams import activate_first, activate_stacked
+from lapbench.solvers.pinn.options import ACTIVATIONS, LAPLACIAN_METHODS, PRECISIONS
+from lapbench.solvers.pinn.streams import activate_first, activate_stacked
 
 __all__ = ["Network", "ACTIVATIONS", "LAPLACIAN_METHODS", "torch_dtype"]
 
 # the torch functions of the activations named in options.ACTIVATIONS (plain forward pass; the
-# derivative streams use solvers.pinn.streams)
+# derivative streams use lapbench.solvers.pinn.streams)
 _ACTIVATION_FUNCTIONS = {"tanh": torch.tanh, "sin": torch.sin, "silu": nn.functional.silu}
 _DTYPES = {"float32": torch.float32, "float64": torch.float64}
 
@@ -124,7 +124,7 @@ class Network(nn.Module):
         ``dims`` (a sorted sequence of k coordinate indices, or None for all d): only those
         coordinates are differentiated; ``grad u`` is then (n, k), the partial derivatives along
         ``dims``, and ``lap u`` the partial sum of the k second derivatives ``u_ii``, i in dims
-        (unscaled; `solvers.pinn.losses.Loss` scales by d / k for the unbiased estimate). The
+        (unscaled; `lapbench.solvers.pinn.losses.Loss` scales by d / k for the unbiased estimate). The
         forward method then carries k + 2 streams instead of d + 2.
         """
         if dims is not None:

@@ -1,11 +1,11 @@
 """The PINN family's option spellings, limits and shared validators (no torch, no solver imports).
 
-Every module of `solvers.pinn` may import this one; it imports nothing of the family, so the
+Every module of `lapbench.solvers.pinn` may import this one; it imports nothing of the family, so the
 validation of a config never pulls torch in and no module reaches up into a solver for a name.
 """
 from __future__ import annotations
 
-from bench.config import ConfigError, positive
+from lapbench.config import ConfigError, positive
 
 __all__ = ["ACTIVATIONS", "LAPLACIAN_METHODS", "LOSSES", "BOUNDARIES", "SAMPLINGS", "PRECISIONS",
            "STRATEGIES", "MAX_DIM", "MAX_WIDTH", "MAX_DEPTH", "MAX_POINTS", "MAX_HISTORY", "count",
@@ -25,7 +25,7 @@ MAX_WIDTH = 4096
 MAX_DEPTH = 64
 MAX_POINTS = 10_000_000
 MAX_HISTORY = 10_000        # L-BFGS curvature pairs
-MAX_DIM = 32                # space dimensions (bench.domains.box.MAX_DIM; tensors have d + 2 streams)
+MAX_DIM = 32                # space dimensions (lapbench.domains.box.MAX_DIM; tensors have d + 2 streams)
 
 
 def count(name: str, value: int, maximum: int | None = None) -> None:

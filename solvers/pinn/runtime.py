@@ -18,7 +18,7 @@ def preload_torch() -> None:
 
     import scipy.stats.qmc  # noqa: F401  (Sobol points; a slow first import)
 
-    import solvers.pinn.train  # noqa: F401
+    import lapbench.solvers.pinn.train  # noqa: F401
 
     if _warm:
         return

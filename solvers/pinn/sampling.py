@@ -10,7 +10,7 @@ import dataclasses
 
 import numpy as np
 
-from solvers.pinn.options import SAMPLINGS
+from lapbench.solvers.pinn.options import SAMPLINGS
 
 __all__ = ["SAMPLINGS", "interior_points", "boundary_points", "fd_derivatives", "PointData",
            "point_data", "FD_STEP"]

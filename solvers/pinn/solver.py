@@ -9,11 +9,11 @@ import dataclasses
 
 import numpy as np
 
-from bench.config import ConfigError, one_of, positive
-from solvers.base import Solution, Solver, Tags
-from solvers.pinn.options import (ACTIVATIONS, BOUNDARIES, LAPLACIAN_METHODS, LOSSES, MAX_DEPTH,
+from lapbench.config import ConfigError, one_of, positive
+from lapbench.solvers.base import Solution, Solver, Tags
+from lapbench.solvers.pinn.options import (ACTIVATIONS, BOUNDARIES, LAPLACIAN_METHODS, LOSSES, MAX_DEPTH,
                                   MAX_DIM, MAX_POINTS, MAX_WIDTH, PRECISIONS, SAMPLINGS, check_schedule, count)
-from solvers.pinn.runtime import preload_torch, retain_freed_memory
+from lapbench.solvers.pinn.runtime import preload_torch, retain_freed_memory
 
 __all__ = ["PINN", "PINNParams", "PINNSoft", "PINNHard", "PINNRitz", "PINNFourier", "PINNRar",
            "PRESETS"]
@@ -98,7 +98,7 @@ class PINN(Solver):
     Dimensions: inputs are points of R^d for every d in PINN_DIMS (the network, the forward
     Laplacian and the samplers are written for any d); ``laplacian_dims = k`` differentiates
     k random coordinates per step with the d / k scaling of Hu, Shukla, Karniadakis & Kawaguchi
-    (Neural Networks, 2024; `solvers.pinn.losses`), so a step costs k + 2 derivative streams.
+    (Neural Networks, 2024; `lapbench.solvers.pinn.losses`), so a step costs k + 2 derivative streams.
 
     Reproducibility: the case seed fixes the initialisation and every point set; with the same
     seed and thread count two runs agree to rounding as long as they stop on a step budget or a
@@ -139,9 +139,9 @@ class PINN(Solver):
     def _solve(self, problem, budget, ctx):
         import torch
 
-        from solvers.pinn.losses import Collocation, Loss, PINNObjective
-        from solvers.pinn.model import Network, torch_dtype
-        from solvers.pinn.train import Schedule, train
+        from lapbench.solvers.pinn.losses import Collocation, Loss, PINNObjective
+        from lapbench.solvers.pinn.model import Network, torch_dtype
+        from lapbench.solvers.pinn.train import Schedule, train
 
         self.preload()   # once per process, outside the timed phases (the harness did it already)
         retain_freed_memory()

@@ -1,6 +1,6 @@
 """Activation of derivative streams with a hand-written backward pass.
 
-The forward Laplacian (see `solvers.pinn.model`) carries, for every hidden neuron, ``k`` streams
+The forward Laplacian (see `lapbench.solvers.pinn.model`) carries, for every hidden neuron, ``k`` streams
 stacked in one tensor of shape ``(k, n, width)``: the value, the ``d`` gradient components and,
 for second order, the Laplacian (``k = d + 2``; ``k = d + 1`` for first order). A linear layer
 acts on all streams with one matrix product. The activation ``sigma`` acts as

@@ -6,7 +6,7 @@ tensor to minimise and the named terms written to the history (tensors, floats o
 define ``after_adam_step(step, more)`` (the PINN's point resampling and refinement) and
 ``before_lbfgs()`` (called once when L-BFGS starts: the PINN's coordinate sampling ends there,
 since L-BFGS needs one deterministic objective for its line search and curvature pairs). The PINN
-solvers (`solvers.pinn.losses.PINNObjective`) and the neural eigen-solver (`solvers.pinn.eigen`)
+solvers (`lapbench.solvers.pinn.losses.PINNObjective`) and the neural eigen-solver (`lapbench.solvers.pinn.eigen`)
 both train through `train`.
 
 Budgets: steps per phase; the wall-clock cap `cap` (seconds from the call, checked before every
@@ -16,7 +16,7 @@ it cuts L-BFGS); an early stop when the loss has not improved by a relative ``pl
 function evaluations: a chunk cut by that allowance goes on; one that stops by L-BFGS's own
 tolerances (or a failed line search) ends the phase, unless ``lbfgs_restarts`` allows a restart
 from the best point with a fresh curvature history while the restarts still gain. NaN or Inf in
-the loss, or a loss grown by DIVERGENCE_FACTOR, raises `solvers.base.Diverged` with the step.
+the loss, or a loss grown by DIVERGENCE_FACTOR, raises `lapbench.solvers.base.Diverged` with the step.
 Checkpoints are spaced geometrically in training time; the harness evaluates `evaluate` there
 (its time is excluded).
 """
@@ -30,7 +30,7 @@ from typing import Callable
 
 import torch
 
-from solvers.base import Diverged
+from lapbench.solvers.base import Diverged
 
 __all__ = ["Objective", "Plateau", "Schedule", "TrainResult", "train", "CHECKPOINT_FIRST",
            "CHECKPOINT_GROWTH", "LBFGS_CHUNK", "LBFGS_EVALS"]

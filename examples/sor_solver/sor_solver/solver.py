@@ -1,6 +1,6 @@
 """Successive over-relaxation for the 5-point Poisson system on a rectangle, as a lapbench plug-in.
 
-The class below subclasses `solvers.base.Solver`, the public contract of lapbench (see lapbench's
+The class below subclasses `lapbench.solvers.base.Solver`, the public contract of lapbench (see lapbench's
 DEVELOPERS.md, "Plug-in solvers"): it sets `name`, `family`, `description`, `reference`, `Params`
 and `tags`, and implements `_solve`. lapbench finds it through the `_target_` of this package's
 own config file (conf/solver/sor.yaml), not through lapbench's registry.
@@ -12,8 +12,8 @@ import math
 
 import numpy as np
 
-from bench.config import ConfigError, positive
-from solvers.base import Diverged, Solution, Solver, Tags
+from lapbench.config import ConfigError, positive
+from lapbench.solvers.base import Diverged, Solution, Solver, Tags
 
 __all__ = ["SOR", "SORParams", "optimal_omega"]
 
