@@ -1,10 +1,10 @@
 """lapbench: error-against-runtime benchmarks of PINNs and classical solvers.
 
 The package's names for notebooks and scripts (`run_case`, `run_suite`, `load_results`,
-`make_report`, ...) live in `lapbench.api` and are loaded on first use, so that importing any
+`make_report`, `check_claim`, ...) live in `lapbench.api` and are loaded on first use, so that importing any
 submodule stays cheap.
 """
-_API = ("run_case", "run_suite", "load_results", "make_report", "ConfigError")
+_API = ("run_case", "run_suite", "load_results", "make_report", "check_claim", "ConfigError")
 
 __all__ = list(_API)
 

@@ -12,6 +12,7 @@ field and the allowed values) before anything runs.
     >>> df = lapbench.run_suite("smoke", results_dir="results")
     >>> df = lapbench.load_results("results", suite="smoke")
     >>> folder = lapbench.make_report(suite="smoke", formats=["md", "html"])
+    >>> verdict = lapbench.check_claim("sine", error=1e-3, time=30.0)
 
 The names are verbs plus an object on purpose: the package's submodules (``run``, ``report``,
 ``records``, ...) share the namespace, and a function called ``run`` would be shadowed by the
@@ -26,7 +27,8 @@ from pathlib import Path
 from lapbench.compose import Args, Session, plan_run
 from lapbench.config import ConfigError, build_params
 
-__all__ = ["run_case", "run_suite", "load_results", "make_report", "overrides_from", "ConfigError"]
+__all__ = ["run_case", "run_suite", "load_results", "make_report", "check_claim", "overrides_from",
+           "ConfigError"]
 
 _PLAIN = re.compile(r"^[A-Za-z0-9_.\-/+:]+$")
 
@@ -153,3 +155,45 @@ def make_report(*, suite: str | None = None, name: str | None = None, results: l
         rcfg = build_params(ReportConfig, OmegaConf.to_container(cfg.report, resolve=True), prefix="report")
     out, _ = write_report(rcfg, out_root=Path(results_dir) / "reports")
     return out
+
+
+def check_claim(problem: str, *, error: float, time: float, metric: str | None = None,
+                hardware: str | None = None, method: str | None = None, solvers: list[str] | None = None,
+                problem_options: dict | None = None, overrides: list[str] | tuple = (),
+                results_dir: str | Path = "results", force: bool = False, progress: bool = True,
+                name: str | None = None, config_dir: str | Path | None = None):
+    """A claim check, as ``lapbench claim``: every classical method solved to the claimed error.
+
+    Returns the `lapbench.claim.Verdict` (``verdict.best``: the fastest classical method's
+    search result, with ``solver``, ``value`` and ``time_s``; ``verdict.ratio``: claimed time /
+    its time here; ``to_markdown()``, ``to_latex()``), after writing ``claim.md`` and
+    ``claim.tex`` under ``<results_dir>/claims/``. `metric` None is the problem kind's default
+    (``rel_l2``, or ``eig_rel_max`` for eigen problems); `solvers` None means every classical
+    method that supports the problem. Probes are ordinary records: a rerun reuses them.
+    """
+    import shlex
+    import sys
+
+    from lapbench.claim import Claim, claim_check, plan_claim, write_verdict
+
+    claim = Claim(error=error, time=time, metric=metric, hardware=hardware, method=method)
+    if name is not None and (not isinstance(name, str) or not name or "/" in name or name.startswith(".")):
+        raise ConfigError(f"`name` must be a plain folder name, got {name!r}")
+    argv = _argv(problem, None, None, problem_options, None, overrides, results_dir, force, config_dir)
+    case, ropts, configs = plan_claim(Args(argv), solvers)
+    extra = {"error": error, "time": time, "metric": metric, "hardware": hardware, "method": method,
+             "solvers": solvers, "name": name}
+    command = "lapbench claim " + " ".join(shlex.quote(a) for a in argv + [
+        f"claim.{k}={_value(v)}" for k, v in extra.items() if v is not None])
+
+    def on_probe(solver, probe, rec):
+        if progress:
+            what = f"{probe.error:.3e}" if probe.ok else (probe.reason or (rec or {}).get("reason") or "")
+            print(f"  {solver} {probe.value}: {probe.status} {what}", file=sys.stderr)
+
+    verdict = claim_check(case.problem, claim, configs, seed=case.seed, threads=case.threads, budget=case.budget,
+                          timing=case.timing, results_dir=ropts.results_dir, problem_label=case.problem_label,
+                          force=ropts.force, command=command,
+                          on_probe=on_probe)
+    write_verdict(verdict, ropts.results_dir, name)
+    return verdict

@@ -25,7 +25,7 @@ from typing import Callable
 from lapbench.config import ConfigError
 from lapbench.tolerance import EIGEN_METRICS, SOLUTION_METRICS, ToleranceResult, metric_for, solve_to_tolerance
 
-__all__ = ["Claim", "Verdict", "claim_check", "classical_solvers", "CITATION"]
+__all__ = ["Claim", "Verdict", "claim_check", "classical_solvers", "plan_claim", "write_verdict", "CITATION"]
 
 CITATION = ("McGreivy & Hakim, \"Weak baselines and reporting biases lead to overoptimism in machine learning "
             "for fluid-related partial differential equations\", Nature Machine Intelligence (2024)")
@@ -255,3 +255,50 @@ def claim_check(problem: dict, claim: Claim, solvers: dict | list | None = None,
     return Verdict(claim=claim, metric=metric, problem_id=pid, problem_text=f"{prob.kind} problem; {prob.source}",
                    results=results, environment=environment(), threads=effective_threads(threads)[0], seed=seed,
                    command=command)
+
+
+def plan_claim(args, solvers=None):
+    """(case, run options, {solver: config}) of a claim check, composed as ``lapbench run`` composes.
+
+    `args` is a `lapbench.compose.Args` holding the problem and run overrides (``problem=...``,
+    ``problem.<knob>=...``, ``seed=...``, ``results_dir=...``); `solvers` a list of solver names
+    (None: every classical method that supports the problem). Every solver config is composed
+    from conf/solver/<name>.yaml and its resolution knob checked before anything runs.
+    """
+    from omegaconf import OmegaConf
+
+    from lapbench.compose import Session, case_from_cfg
+    from lapbench.problems import make_problem
+    from lapbench.tolerance import knob_for
+
+    if any(o.split("=", 1)[0].lstrip("+~") in ("solver", "suite") for o in args.overrides):
+        raise ConfigError("`solver`/`suite` do not apply to a claim check; use claim.solvers=[...]")
+    base = args.searchpath_overrides() + args.overrides
+    with Session(args) as session:
+        case, ropts = case_from_cfg(session.compose(base))
+        if solvers is None:
+            names = classical_solvers(make_problem(case.problem))
+        elif isinstance(solvers, str):
+            names = [solvers]
+        elif isinstance(solvers, (list, tuple)) and all(isinstance(x, str) for x in solvers):
+            names = list(solvers)
+        else:
+            raise ConfigError(f"`claim.solvers` must be a list of solver names, got {solvers!r}")
+        configs = {}
+        for s in names:
+            cfg = session.compose(base + [f"solver={s}"])
+            configs[s] = OmegaConf.to_container(cfg.solver, resolve=True)
+            knob_for(configs[s])
+    return case, ropts, configs
+
+
+def write_verdict(verdict: Verdict, results_dir: str | Path, name: str | None = None) -> Path:
+    """Write ``claim.md`` and ``claim.tex`` to ``<results_dir>/claims/<name or problem id>/``; the folder."""
+    from lapbench.records import write_atomic
+    from lapbench.report.frame import _slug
+
+    out = Path(results_dir) / "claims" / (name or _slug(verdict.problem_id))
+    out.mkdir(parents=True, exist_ok=True)
+    write_atomic(out / "claim.md", verdict.to_markdown())
+    write_atomic(out / "claim.tex", verdict.to_latex())
+    return out

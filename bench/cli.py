@@ -387,10 +387,7 @@ def cmd_claim(argv: list[str]) -> int:
     import yaml
     from omegaconf import OmegaConf
 
-    from lapbench.claim import Claim, claim_check, classical_solvers
-    from lapbench.problems import make_problem
-    from lapbench.records import write_atomic
-    from lapbench.tolerance import knob_for
+    from lapbench.claim import Claim, claim_check, plan_claim, write_verdict
 
     opts, rest = {}, []
     for a in argv:
@@ -420,30 +417,12 @@ def cmd_claim(argv: list[str]) -> int:
     claim = Claim(**opts)
     if name is not None and (not name or "/" in name or name.startswith(".")):
         raise ConfigError(f"`claim.name` must be a plain folder name, got {name!r}")
-    if any(o.split("=", 1)[0].lstrip("+~") in ("solver", "suite") for o in args.overrides):
-        raise ConfigError("`solver`/`suite` do not apply to `lapbench claim`; use claim.solvers=[...]")
-    base = args.searchpath_overrides() + args.overrides
-    with Session(args) as session:
-        case, ropts = case_from_cfg(session.compose(base))
-        problem = make_problem(case.problem)
-        if solvers is None:
-            names = classical_solvers(problem)
-        elif isinstance(solvers, str):
-            names = [solvers]
-        elif isinstance(solvers, list) and all(isinstance(x, str) for x in solvers):
-            names = solvers
-        else:
-            raise ConfigError(f"`claim.solvers` must be a list of solver names, got {solvers!r}")
-        configs = {}
-        for s in names:
-            cfg = session.compose(base + [f"solver={s}"])
-            configs[s] = OmegaConf.to_container(cfg.solver, resolve=True)
-            knob_for(configs[s])
+    case, ropts, configs = plan_claim(args, solvers)
     command = "lapbench claim " + " ".join(shlex.quote(a) for a in argv)
 
     def progress(solver, probe, rec):
-        err = f"{probe.error:.3e}" if probe.ok else ""
-        print(f"  {solver} {probe.value}: {probe.status} {err}{' (record exists)' if probe.skipped else ''}",
+        what = f"{probe.error:.3e}" if probe.ok else (probe.reason or (rec or {}).get("reason") or "")
+        print(f"  {solver} {probe.value}: {probe.status} {what}{' (record exists)' if probe.skipped else ''}",
               file=sys.stderr)
 
     print(f"lapbench: claim check on {case.problem_label}: {len(configs)} classical method(s); "
@@ -451,12 +430,7 @@ def cmd_claim(argv: list[str]) -> int:
     verdict = claim_check(case.problem, claim, configs, seed=case.seed, threads=case.threads, budget=case.budget,
                           timing=case.timing, results_dir=ropts.results_dir, problem_label=case.problem_label,
                           force=ropts.force, command=command, on_probe=progress)
-    from lapbench.report.frame import _slug
-
-    out = Path(ropts.results_dir) / "claims" / (name or _slug(verdict.problem_id))
-    out.mkdir(parents=True, exist_ok=True)
-    write_atomic(out / "claim.md", verdict.to_markdown())
-    write_atomic(out / "claim.tex", verdict.to_latex())
+    out = write_verdict(verdict, ropts.results_dir, name)
     print(verdict.to_markdown())
     print(f"lapbench: verdict written to {out}/claim.md and claim.tex", file=sys.stderr)
     return 0

@@ -412,9 +412,9 @@ def test_modules_import_downwards_only():
         deps = set()
         for node in ast.walk(ast.parse(f.read_text())):
             if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("lapbench.solvers.pinn."):
-                deps.add(node.module.split(".")[2])
+                deps.add(node.module.split(".")[3])
             elif isinstance(node, ast.Import):
-                deps |= {a.name.split(".")[2] for a in node.names if a.name.startswith("lapbench.solvers.pinn.")}
+                deps |= {a.name.split(".")[3] for a in node.names if a.name.startswith("lapbench.solvers.pinn.")}
         graph[f.stem] = deps
     assert {m for m, deps in graph.items() if "solver" in deps} == {"__init__"}, graph
     seen, done = set(), set()
