@@ -174,11 +174,10 @@ def check_claim(problem: str, *, error: float, time: float, metric: str | None =
     import shlex
     import sys
 
-    from lapbench.claim import Claim, claim_check, plan_claim, write_verdict
+    from lapbench.claim import Claim, check_folder_name, claim_check, plan_claim, probe_line, write_verdict
 
     claim = Claim(error=error, time=time, metric=metric, hardware=hardware, method=method)
-    if name is not None and (not isinstance(name, str) or not name or "/" in name or name.startswith(".")):
-        raise ConfigError(f"`name` must be a plain folder name, got {name!r}")
+    check_folder_name(name, "name")
     argv = _argv(problem, None, None, problem_options, None, overrides, results_dir, force, config_dir)
     case, ropts, configs = plan_claim(Args(argv), solvers)
     extra = {"error": error, "time": time, "metric": metric, "hardware": hardware, "method": method,
@@ -188,8 +187,7 @@ def check_claim(problem: str, *, error: float, time: float, metric: str | None =
 
     def on_probe(solver, probe, rec):
         if progress:
-            what = f"{probe.error:.3e}" if probe.ok else (probe.reason or (rec or {}).get("reason") or "")
-            print(f"  {solver} {probe.value}: {probe.status} {what}", file=sys.stderr)
+            print(probe_line(solver, probe, rec), file=sys.stderr)
 
     verdict = claim_check(case.problem, claim, configs, seed=case.seed, threads=case.threads, budget=case.budget,
                           timing=case.timing, results_dir=ropts.results_dir, problem_label=case.problem_label,

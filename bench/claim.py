@@ -25,7 +25,8 @@ from typing import Callable
 from lapbench.config import ConfigError
 from lapbench.tolerance import EIGEN_METRICS, SOLUTION_METRICS, ToleranceResult, metric_for, solve_to_tolerance
 
-__all__ = ["Claim", "Verdict", "claim_check", "classical_solvers", "plan_claim", "write_verdict", "CITATION"]
+__all__ = ["Claim", "Verdict", "claim_check", "classical_solvers", "plan_claim", "probe_line", "check_folder_name",
+           "write_verdict", "CITATION"]
 
 CITATION = ("McGreivy & Hakim, \"Weak baselines and reporting biases lead to overoptimism in machine learning "
             "for fluid-related partial differential equations\", Nature Machine Intelligence (2024)")
@@ -302,3 +303,15 @@ def write_verdict(verdict: Verdict, results_dir: str | Path, name: str | None = 
     write_atomic(out / "claim.md", verdict.to_markdown())
     write_atomic(out / "claim.tex", verdict.to_latex())
     return out
+
+
+def check_folder_name(name: str | None, field: str = "claim.name") -> None:
+    """A verdict folder name must be plain (checked before any probe runs)."""
+    if name is not None and (not isinstance(name, str) or not name or "/" in name or name.startswith(".")):
+        raise ConfigError(f"`{field}` must be a plain folder name, got {name!r}")
+
+
+def probe_line(solver: str, probe, rec) -> str:
+    """One progress line of a probe: its error, or why it failed."""
+    what = f"{probe.error:.3e}" if probe.ok else (probe.reason or (rec or {}).get("reason") or "")
+    return f"  {solver} {probe.value}: {probe.status} {what}{' (record exists)' if probe.skipped else ''}"

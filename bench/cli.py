@@ -387,7 +387,7 @@ def cmd_claim(argv: list[str]) -> int:
     import yaml
     from omegaconf import OmegaConf
 
-    from lapbench.claim import Claim, claim_check, plan_claim, write_verdict
+    from lapbench.claim import Claim, check_folder_name, claim_check, plan_claim, probe_line, write_verdict
 
     opts, rest = {}, []
     for a in argv:
@@ -415,15 +415,12 @@ def cmd_claim(argv: list[str]) -> int:
     solvers = opts.pop("solvers", None)
     name = opts.pop("name", None)
     claim = Claim(**opts)
-    if name is not None and (not name or "/" in name or name.startswith(".")):
-        raise ConfigError(f"`claim.name` must be a plain folder name, got {name!r}")
+    check_folder_name(name)
     case, ropts, configs = plan_claim(args, solvers)
     command = "lapbench claim " + " ".join(shlex.quote(a) for a in argv)
 
     def progress(solver, probe, rec):
-        what = f"{probe.error:.3e}" if probe.ok else (probe.reason or (rec or {}).get("reason") or "")
-        print(f"  {solver} {probe.value}: {probe.status} {what}{' (record exists)' if probe.skipped else ''}",
-              file=sys.stderr)
+        print(probe_line(solver, probe, rec), file=sys.stderr)
 
     print(f"lapbench: claim check on {case.problem_label}: {len(configs)} classical method(s); "
           f"records under {ropts.results_dir}/runs/", file=sys.stderr)
